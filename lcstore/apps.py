@@ -1,0 +1,7 @@
+from django.apps import AppConfig
+
+
+class LcstoreConfig(AppConfig):
+    name = "lcstore"
+    verbose_name = "Light-curve store"
+    default_auto_field = "django.db.models.BigAutoField"

@@ -1,0 +1,192 @@
+"""Settings for lcstore, read from the environment.
+
+``DATABASE_URL`` selects the database (PostgreSQL in production and in the
+test suite); without it an embedded SQLite file serves the demo.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+import dj_database_url
+from astropy.utils import iers
+
+# astropy must never reach for the network (REFERENCES §3): use the bundled
+# Earth-rotation and leap-second tables, however old.
+iers.conf.auto_download = False
+iers.conf.auto_max_age = None
+
+BASE_DIR = Path(__file__).resolve().parent.parent
+
+
+def _env_bool(name: str, default: bool = False) -> bool:
+    value = os.environ.get(name)
+    if value is None:
+        return default
+    return value.strip().lower() in {"1", "true", "yes", "on"}
+
+
+def _env_int(name: str, default: int) -> int:
+    value = os.environ.get(name)
+    return int(value) if value not in (None, "") else default
+
+
+DEBUG = _env_bool("DEBUG", False)
+# The fallback key only serves the local demo; production sets SECRET_KEY.
+SECRET_KEY = os.environ.get("SECRET_KEY") or "insecure-demo-key-set-SECRET_KEY-in-production"
+ALLOWED_HOSTS = [
+    h.strip() for h in os.environ.get("ALLOWED_HOSTS", "localhost,127.0.0.1,testserver").split(",")
+]
+
+INSTALLED_APPS = [
+    "django.contrib.admin",
+    "django.contrib.auth",
+    "django.contrib.contenttypes",
+    "django.contrib.sessions",
+    "django.contrib.messages",
+    "django.contrib.staticfiles",
+    "rest_framework",
+    "rest_framework.authtoken",
+    "django_filters",
+    "drf_spectacular",
+    "simple_history",
+    "django_tasks",
+    "django_tasks_db",
+    "lcstore",
+    "api",
+]
+
+MIDDLEWARE = [
+    "django.middleware.security.SecurityMiddleware",
+    "whitenoise.middleware.WhiteNoiseMiddleware",
+    "django.contrib.sessions.middleware.SessionMiddleware",
+    "django.middleware.common.CommonMiddleware",
+    "django.middleware.csrf.CsrfViewMiddleware",
+    "django.contrib.auth.middleware.AuthenticationMiddleware",
+    "django.contrib.messages.middleware.MessageMiddleware",
+    "django.middleware.clickjacking.XFrameOptionsMiddleware",
+    "simple_history.middleware.HistoryRequestMiddleware",
+]
+
+ROOT_URLCONF = "lcstore.urls"
+
+TEMPLATES = [
+    {
+        "BACKEND": "django.template.backends.django.DjangoTemplates",
+        "DIRS": [],
+        "APP_DIRS": True,
+        "OPTIONS": {
+            "context_processors": [
+                "django.template.context_processors.request",
+                "django.contrib.auth.context_processors.auth",
+                "django.contrib.messages.context_processors.messages",
+            ],
+        },
+    },
+]
+
+WSGI_APPLICATION = "lcstore.wsgi.application"
+ASGI_APPLICATION = "lcstore.asgi.application"
+
+DATA_DIR = Path(os.environ.get("LCSTORE_DATA_DIR", BASE_DIR / "var"))
+
+# The test suite always runs on PostgreSQL: under pytest, without DATABASE_URL,
+# the local server of the README is used (never the embedded SQLite file).
+_RUNNING_TESTS = "pytest" in sys.modules
+if _RUNNING_TESTS and not os.environ.get("DATABASE_URL"):
+    os.environ["DATABASE_URL"] = "postgres://postgres@127.0.0.1:5432/postgres"
+
+if os.environ.get("DATABASE_URL"):
+    DATABASES = {"default": dj_database_url.parse(os.environ["DATABASE_URL"], conn_max_age=60)}
+else:
+    DATABASES = {
+        "default": {
+            "ENGINE": "django.db.backends.sqlite3",
+            "NAME": DATA_DIR / "lcstore-demo.sqlite3",
+        }
+    }
+
+DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"
+
+AUTH_PASSWORD_VALIDATORS = [
+    {"NAME": "django.contrib.auth.password_validation.MinimumLengthValidator"},
+]
+
+LANGUAGE_CODE = "en-us"
+TIME_ZONE = "UTC"
+USE_I18N = True
+USE_TZ = True
+
+STATIC_URL = "static/"
+STATIC_ROOT = BASE_DIR / "staticfiles"
+
+# Uploads: the whole file is read and checksummed, so let Django keep it in a
+# temporary file rather than in memory past a few MB.
+LCSTORE_MAX_UPLOAD_MB = _env_int("LCSTORE_MAX_UPLOAD_MB", 256)
+DATA_UPLOAD_MAX_MEMORY_SIZE = 10 * 1024 * 1024
+FILE_UPLOAD_MAX_MEMORY_SIZE = 5 * 1024 * 1024
+LCSTORE_MAX_ROWS = _env_int("LCSTORE_MAX_ROWS", 20_000_000)
+LCSTORE_MAX_COLUMNS = _env_int("LCSTORE_MAX_COLUMNS", 200)
+LCSTORE_MAX_BINS = _env_int("LCSTORE_MAX_BINS", 1_000_000)
+LCSTORE_MAX_LAG_POINTS = _env_int("LCSTORE_MAX_LAG_POINTS", 20_000)
+LCSTORE_MAX_SIMULATIONS = _env_int("LCSTORE_MAX_SIMULATIONS", 10_000)
+LCSTORE_SYNC_SIMULATIONS = _env_int("LCSTORE_SYNC_SIMULATIONS", 200)
+LCSTORE_PUBLIC_READ = _env_bool("LCSTORE_PUBLIC_READ", False)
+
+REST_FRAMEWORK = {
+    "DEFAULT_AUTHENTICATION_CLASSES": [
+        "rest_framework.authentication.TokenAuthentication",
+        "rest_framework.authentication.SessionAuthentication",
+    ],
+    "DEFAULT_PERMISSION_CLASSES": ["api.permissions.ReadAccess"],
+    "DEFAULT_FILTER_BACKENDS": ["django_filters.rest_framework.DjangoFilterBackend"],
+    "DEFAULT_PAGINATION_CLASS": "api.pagination.Pagination",
+    "PAGE_SIZE": 100,
+    "DEFAULT_SCHEMA_CLASS": "drf_spectacular.openapi.AutoSchema",
+    "EXCEPTION_HANDLER": "api.errors.exception_handler",
+    "DEFAULT_RENDERER_CLASSES": [
+        "rest_framework.renderers.JSONRenderer",
+        "rest_framework.renderers.BrowsableAPIRenderer",
+    ],
+    "URL_FORMAT_OVERRIDE": "format",
+}
+
+SPECTACULAR_SETTINGS = {
+    "TITLE": "lcstore API",
+    "DESCRIPTION": (
+        "Multiwavelength light curves with provenance: upload photometry, pull "
+        "band-merged, unit-converted, binned curves (times in BJD_TDB as MJD) and "
+        "correlation, lag and variability summaries."
+    ),
+    "VERSION": "1",
+    "SERVE_INCLUDE_SCHEMA": False,
+}
+
+TASKS = {
+    "default": {
+        "BACKEND": os.environ.get(
+            "LCSTORE_TASK_BACKEND",
+            "django_tasks_db.backend.DatabaseBackend"
+            if os.environ.get("DATABASE_URL")
+            else "django_tasks.backends.immediate.ImmediateBackend",
+        )
+    }
+}
+
+if os.environ.get("REDIS_URL"):
+    CACHES = {
+        "default": {
+            "BACKEND": "django.core.cache.backends.redis.RedisCache",
+            "LOCATION": os.environ["REDIS_URL"],
+        }
+    }
+else:
+    CACHES = {"default": {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}}
+
+LOGIN_URL = "/admin/login/"
+
+if not DEBUG:
+    SESSION_COOKIE_SECURE = _env_bool("LCSTORE_SECURE_COOKIES", False)
+    CSRF_COOKIE_SECURE = SESSION_COOKIE_SECURE
