@@ -1,0 +1,293 @@
+"""Services: everything that writes to the store. Keyword-only, one transaction each."""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from django.db import connection, transaction
+from django.utils import timezone
+
+from lcstore import roles
+from lcstore.ingest.load import points_load
+from lcstore.ingest.pipeline import (
+    BandRecord,
+    InstrumentRecord,
+    SourceRecord,
+    UploadInvalid,
+    prepare_points,
+)
+from lcstore.ingest.readers import FileProblem, ReadError, read_upload
+from lcstore.models import Band, Instrument, Source, StoredFile, Upload, UploadStatus
+
+__all__ = [
+    "UploadConflict",
+    "UploadForbidden",
+    "UploadInvalid",
+    "UploadParams",
+    "upload_create",
+    "upload_retract",
+]
+
+
+class UploadConflict(Exception):
+    """The same bytes were already accepted for the same source."""
+
+    def __init__(self, existing: Upload, source_slugs: list[str]):
+        self.existing = existing
+        self.source_slugs = source_slugs
+        super().__init__(
+            f"this file (sha256 {existing.file_id}) was already accepted for "
+            f"{', '.join(source_slugs)} as upload {existing.pk}"
+        )
+
+
+class UploadForbidden(Exception):
+    """The account may not do this to that upload."""
+
+
+@dataclass(frozen=True)
+class UploadParams:
+    """What a contributor says about a file (DESIGN.md §4, Upload)."""
+
+    instrument: str
+    source: str | None = None
+    band: str | None = None
+    format: str | None = None
+    columns: dict[str, str] | None = None
+    value_unit: str | None = None
+    time_format: str | None = None
+    time_scale: str | None = None
+    time_reference: str | None = None
+    met_epoch: float | None = None
+    reduction: str = ""
+    reference: str = ""
+    embargo_until: dt.datetime | None = None
+    supersedes: int | None = None
+
+
+def _problem(message: str, column: str | None = None) -> UploadInvalid:
+    return UploadInvalid([FileProblem(row=None, column=column, message=message)])
+
+
+def _catalogue(params: UploadParams) -> tuple[InstrumentRecord, dict, dict]:
+    try:
+        inst = Instrument.objects.get(slug=params.instrument)
+    except Instrument.DoesNotExist:
+        raise _problem(f"unknown instrument {params.instrument!r}", "instrument") from None
+    instrument = InstrumentRecord(
+        id=inst.pk,
+        slug=inst.slug,
+        site=inst.site,
+        default_time_format=inst.default_time_format,
+        default_time_scale=inst.default_time_scale,
+        default_time_reference=inst.default_time_reference,
+        met_epoch=inst.met_epoch,
+    )
+    src_qs = Source.objects.all()
+    band_qs = Band.objects.all()
+    if params.source:
+        src_qs = src_qs.filter(slug=params.source)
+        if not src_qs.exists():
+            raise _problem(f"unknown source {params.source!r}", "source")
+    if params.band:
+        band_qs = band_qs.filter(slug=params.band)
+        if not band_qs.exists():
+            raise _problem(f"unknown band {params.band!r}", "band")
+    sources = {s.slug: SourceRecord(id=s.pk, slug=s.slug, ra=s.ra, dec=s.dec) for s in src_qs}
+    bands = {b.slug: BandRecord(id=b.pk, spec=b.spec()) for b in band_qs}
+    return instrument, sources, bands
+
+
+def _metadata_snapshot(instrument_id: int, source_ids: list[int], band_ids: list[int]) -> dict:
+    """The curated values the conversion used, with their history ids."""
+
+    def snap(model: Any, ids: list[int], fields: tuple[str, ...]) -> dict:
+        out = {}
+        for obj in model.objects.filter(pk__in=ids):
+            rec = {f: getattr(obj, f) for f in fields}
+            latest = obj.history.order_by("-history_id").first()
+            rec["history_id"] = latest.history_id if latest else None
+            out[obj.slug] = rec
+        return out
+
+    return {
+        "instrument": snap(
+            Instrument,
+            [instrument_id],
+            ("site_lon", "site_lat", "site_height", "kind", "met_epoch"),
+        ),
+        "sources": snap(Source, source_ids, ("ra", "dec")),
+        "bands": snap(
+            Band,
+            band_ids,
+            (
+                "kind",
+                "wavelength_eff",
+                "mag_system",
+                "zero_point_jy",
+                "energy_min_kev",
+                "energy_max_kev",
+                "pivot_energy_kev",
+                "photon_index",
+                "counts_to_energy_flux",
+            ),
+        ),
+    }
+
+
+def _lock_checksum(sha256: str) -> None:
+    """Serialise concurrent uploads of the same bytes, so the 409 rule holds under a race."""
+    if connection.vendor == "postgresql":
+        with connection.cursor() as cursor:
+            cursor.execute("SELECT pg_advisory_xact_lock(%s)", [int(sha256[:15], 16)])
+
+
+def upload_create(
+    *,
+    uploader: Any,
+    data: bytes,
+    file_name: str,
+    params: UploadParams,
+    max_rows: int | None = None,
+    max_columns: int | None = None,
+) -> Upload:
+    """Read, check, convert and store one file, all or nothing.
+
+    Raises :class:`UploadInvalid` (every problem found, nothing stored) or
+    :class:`UploadConflict` (same bytes already accepted for the same source).
+    """
+    sha256 = hashlib.sha256(data).hexdigest()
+    try:
+        raw = read_upload(
+            data,
+            filename=file_name,
+            format=params.format,
+            max_rows=max_rows,
+            max_columns=max_columns,
+        )
+    except ReadError as exc:
+        raise UploadInvalid(exc.problems or [FileProblem(None, None, str(exc))]) from None
+    instrument, sources, bands = _catalogue(params)
+    prepared = prepare_points(
+        raw,
+        instrument=instrument,
+        sources=sources,
+        bands=bands,
+        source=params.source,
+        band=params.band,
+        columns=params.columns,
+        value_unit=params.value_unit,
+        time_format=params.time_format,
+        time_scale=params.time_scale,
+        time_reference=params.time_reference,
+        met_epoch=params.met_epoch,
+    )
+    if len(prepared) == 0:
+        raise _problem("the file has no data rows")
+    source_ids = sorted({int(i) for i in np.unique(prepared.source_id)})
+    band_ids = sorted({int(i) for i in np.unique(prepared.band_id)})
+
+    with transaction.atomic():
+        _lock_checksum(sha256)
+        existing = (
+            Upload.objects.filter(
+                file_id=sha256, status=UploadStatus.ACCEPTED, sources__in=source_ids
+            )
+            .order_by("created_at")
+            .first()
+        )
+        if existing is not None:
+            slugs = sorted(
+                existing.sources.filter(pk__in=source_ids).values_list("slug", flat=True)
+            )
+            raise UploadConflict(existing, slugs)
+        old = None
+        if params.supersedes is not None:
+            old = Upload.objects.select_for_update().filter(pk=params.supersedes).first()
+            if old is None:
+                raise _problem(f"upload {params.supersedes} does not exist", "supersedes")
+            if old.uploader_id != uploader.pk and not roles.is_curator(uploader):
+                raise UploadForbidden(f"upload {old.pk} belongs to another contributor")
+            if old.status != UploadStatus.ACCEPTED:
+                raise _problem(
+                    f"upload {old.pk} is {old.status}; only an accepted upload can be superseded",
+                    "supersedes",
+                )
+        if not StoredFile.objects.filter(pk=sha256).exists():
+            StoredFile.objects.create(sha256=sha256, size=len(data), content=data)
+        now = timezone.now()
+        ts = prepared.time
+        upload = Upload.objects.create(
+            uploader=uploader,
+            created_at=now,
+            file_id=sha256,
+            file_name=file_name[:255],
+            format=raw.format,
+            source=Source.objects.get(slug=params.source) if params.source else None,
+            band=Band.objects.get(slug=params.band) if params.band else None,
+            instrument_id=instrument.id,
+            columns=prepared.columns,
+            value_unit=prepared.value_unit,
+            time_format=ts.time_format,
+            time_scale=ts.time_scale,
+            time_reference=ts.time_reference,
+            met_epoch=ts.met_epoch,
+            parameters={
+                "time": {
+                    "format": ts.time_format,
+                    "scale": ts.time_scale,
+                    "reference": ts.time_reference,
+                    "met_epoch_mjd": ts.met_epoch,
+                    "met_unit_s": ts.met_unit_s,
+                    "time_zero": ts.time_zero,
+                    "from": ts.origin,
+                    "stored_as": "MJD (TDB) at the solar-system barycentre (BJD_TDB - 2400000.5)",
+                },
+                "value_unit": prepared.value_unit,
+                "metadata": _metadata_snapshot(instrument.id, source_ids, band_ids),
+                "read": {
+                    k: v
+                    for k, v in raw.meta.items()
+                    if k in ("delimiter", "header", "encoding", "hdu")
+                },
+            },
+            reduction=params.reduction,
+            reference=params.reference,
+            embargo_until=params.embargo_until,
+            supersedes=old,
+            n_rows=len(raw.columns),
+            n_points=len(prepared),
+            n_upper_limits=int(prepared.upper_limit.sum()),
+            time_min=float(prepared.t.min()),
+            time_max=float(prepared.t.max()),
+            warnings=prepared.warnings,
+        )
+        upload.sources.set(source_ids)
+        points_load(prepared, instrument_id=instrument.id, upload_id=upload.pk)
+        if old is not None:
+            old.status = UploadStatus.SUPERSEDED
+            old.superseded_at = now
+            old.save(update_fields=["status", "superseded_at"])
+    return upload
+
+
+def upload_retract(*, upload: Upload, user: Any, reason: str) -> Upload:
+    """Mark an upload retracted (who, when, why); its points stay, hidden after that instant."""
+    if upload.uploader_id != user.pk and not roles.is_curator(user):
+        raise UploadForbidden("only the uploader or a curator may retract an upload")
+    if not reason or not reason.strip():
+        raise _problem("a retraction needs a reason", "reason")
+    with transaction.atomic():
+        locked = Upload.objects.select_for_update().get(pk=upload.pk)
+        if locked.status == UploadStatus.RETRACTED:
+            raise _problem(f"upload {locked.pk} is already retracted", "reason")
+        locked.status = UploadStatus.RETRACTED
+        locked.retracted_at = timezone.now()
+        locked.retracted_by = user
+        locked.retraction_reason = reason.strip()
+        locked.save(update_fields=["status", "retracted_at", "retracted_by", "retraction_reason"])
+    return locked
