@@ -1,0 +1,177 @@
+"""Serializers of the catalogue and of upload records.
+
+Writable serializers run the model's ``full_clean()`` so the admin screens and
+the API enforce one set of rules.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from django.core.exceptions import ValidationError as DjangoValidationError
+from rest_framework import serializers
+
+from lcstore.models import Band, CalibrationOffset, HostFlux, Instrument, Source, Upload
+
+__all__ = [
+    "BandSerializer",
+    "CalibrationOffsetSerializer",
+    "HostFluxSerializer",
+    "InstrumentSerializer",
+    "SourceSerializer",
+    "UploadSerializer",
+]
+
+
+class FullCleanMixin:
+    """Validate through the model's own ``full_clean`` (model and database rules)."""
+
+    def validate(self, attrs: dict[str, Any]) -> dict[str, Any]:
+        attrs = super().validate(attrs)  # type: ignore[misc]
+        model = self.Meta.model  # type: ignore[attr-defined]
+        instance = self.instance or model()  # type: ignore[attr-defined]
+        for key, value in attrs.items():
+            setattr(instance, key, value)
+        try:
+            instance.full_clean(validate_unique=False)
+        except DjangoValidationError as exc:
+            raise serializers.ValidationError(exc.message_dict) from None
+        return attrs
+
+
+class SourceSerializer(FullCleanMixin, serializers.ModelSerializer):
+    aliases = serializers.ListField(child=serializers.CharField(max_length=200), required=False)
+
+    class Meta:
+        model = Source
+        fields = ["slug", "name", "aliases", "ra", "dec", "redshift", "ebv", "notes"]
+
+
+class InstrumentSerializer(FullCleanMixin, serializers.ModelSerializer):
+    class Meta:
+        model = Instrument
+        fields = [
+            "slug",
+            "name",
+            "kind",
+            "site_lon",
+            "site_lat",
+            "site_height",
+            "default_time_format",
+            "default_time_scale",
+            "default_time_reference",
+            "met_epoch",
+            "notes",
+        ]
+
+
+class BandSerializer(FullCleanMixin, serializers.ModelSerializer):
+    canonical_unit = serializers.SerializerMethodField()
+
+    class Meta:
+        model = Band
+        fields = [
+            "slug",
+            "name",
+            "kind",
+            "wavelength_eff",
+            "mag_system",
+            "zero_point_jy",
+            "energy_min_kev",
+            "energy_max_kev",
+            "pivot_energy_kev",
+            "photon_index",
+            "counts_to_energy_flux",
+            "canonical_unit",
+        ]
+
+    def get_canonical_unit(self, obj: Band) -> str:
+        from lcstore.science.units import canonical_unit
+
+        return canonical_unit(obj.kind).to_string()
+
+
+class CalibrationOffsetSerializer(FullCleanMixin, serializers.ModelSerializer):
+    instrument = serializers.SlugRelatedField(slug_field="slug", queryset=Instrument.objects.all())
+    band = serializers.SlugRelatedField(slug_field="slug", queryset=Band.objects.all())
+
+    class Meta:
+        model = CalibrationOffset
+        fields = ["id", "instrument", "band", "factor", "notes"]
+
+
+class HostFluxSerializer(FullCleanMixin, serializers.ModelSerializer):
+    source = serializers.SlugRelatedField(slug_field="slug", queryset=Source.objects.all())
+    band = serializers.SlugRelatedField(slug_field="slug", queryset=Band.objects.all())
+
+    class Meta:
+        model = HostFlux
+        fields = ["id", "source", "band", "value", "error", "reference"]
+
+
+class UploadSerializer(serializers.ModelSerializer):
+    uploader = serializers.CharField(source="uploader.username", read_only=True)
+    sha256 = serializers.CharField(source="file_id", read_only=True)
+    size = serializers.IntegerField(source="file.size", read_only=True)
+    source = serializers.SlugRelatedField(slug_field="slug", read_only=True)
+    sources = serializers.SlugRelatedField(slug_field="slug", many=True, read_only=True)
+    band = serializers.SlugRelatedField(slug_field="slug", read_only=True)
+    instrument = serializers.SlugRelatedField(slug_field="slug", read_only=True)
+    retracted_by = serializers.CharField(
+        source="retracted_by.username", read_only=True, default=None
+    )
+    superseded_by = serializers.SerializerMethodField()
+    counts = serializers.SerializerMethodField()
+    time_range = serializers.SerializerMethodField()
+
+    class Meta:
+        model = Upload
+        fields = [
+            "id",
+            "uploader",
+            "created_at",
+            "file_name",
+            "sha256",
+            "size",
+            "format",
+            "source",
+            "sources",
+            "band",
+            "instrument",
+            "columns",
+            "value_unit",
+            "time_format",
+            "time_scale",
+            "time_reference",
+            "met_epoch",
+            "parameters",
+            "reduction",
+            "reference",
+            "embargo_until",
+            "status",
+            "supersedes",
+            "superseded_by",
+            "superseded_at",
+            "retracted_at",
+            "retracted_by",
+            "retraction_reason",
+            "counts",
+            "time_range",
+            "warnings",
+        ]
+        read_only_fields = fields
+
+    def get_superseded_by(self, obj: Upload) -> int | None:
+        nxt = obj.superseded_by.order_by("created_at").first()
+        return nxt.pk if nxt else None
+
+    def get_counts(self, obj: Upload) -> dict[str, int]:
+        return {
+            "rows": obj.n_rows,
+            "points": obj.n_points,
+            "upper_limits": obj.n_upper_limits,
+            "detections": obj.n_points - obj.n_upper_limits,
+        }
+
+    def get_time_range(self, obj: Upload) -> dict[str, Any]:
+        return {"start": obj.time_min, "end": obj.time_max, "system": "MJD TDB, barycentric"}
