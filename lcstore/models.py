@@ -9,6 +9,7 @@ and the original file is kept by checksum, so nothing is ever lost.
 
 from __future__ import annotations
 
+import uuid
 from typing import Any
 
 from django.conf import settings
@@ -29,6 +30,8 @@ __all__ = [
     "HostFlux",
     "Instrument",
     "InstrumentKind",
+    "Job",
+    "JobState",
     "MagSystem",
     "Source",
     "StoredFile",
@@ -371,3 +374,32 @@ class FluxPoint(models.Model):
             ),
             models.Index(fields=["source", "upload"], name="point_source_upload"),
         ]
+
+
+class JobState(models.TextChoices):
+    QUEUED = "queued"
+    RUNNING = "running"
+    DONE = "done"
+    FAILED = "failed"
+
+
+class Job(models.Model):
+    """A background computation (large simulations): state, progress, result or error."""
+
+    id = models.UUIDField(primary_key=True, default=uuid.uuid4, editable=False)
+    kind = models.CharField(max_length=20)
+    owner = models.ForeignKey(settings.AUTH_USER_MODEL, on_delete=models.PROTECT)
+    source = models.ForeignKey(Source, on_delete=models.PROTECT)
+    parameters = models.JSONField(default=dict)
+    state = models.CharField(max_length=10, choices=JobState.choices, default=JobState.QUEUED)
+    progress = models.FloatField(default=0.0)
+    result = models.JSONField(null=True, blank=True)
+    error = models.TextField(blank=True)
+    attempts = models.IntegerField(default=0)
+    task_id = models.CharField(max_length=64, blank=True)
+    created_at = models.DateTimeField(default=timezone.now)
+    started_at = models.DateTimeField(null=True, blank=True)
+    finished_at = models.DateTimeField(null=True, blank=True)
+
+    class Meta:
+        ordering = ["-created_at"]
