@@ -41,10 +41,23 @@ class FullCleanMixin:
 
 class SourceSerializer(FullCleanMixin, serializers.ModelSerializer):
     aliases = serializers.ListField(child=serializers.CharField(max_length=200), required=False)
+    summary = serializers.SerializerMethodField(
+        help_text="per band: points, upper limits and time range (MJD TDB) visible to you"
+    )
 
     class Meta:
         model = Source
-        fields = ["slug", "name", "aliases", "ra", "dec", "redshift", "ebv", "notes"]
+        fields = ["slug", "name", "aliases", "ra", "dec", "redshift", "ebv", "notes", "summary"]
+
+    def get_summary(self, obj: Source) -> list[dict[str, Any]]:
+        summaries = self.context.get("summaries")
+        if summaries is None or obj.pk not in summaries:
+            from lcstore.queries import source_summaries
+
+            request = self.context.get("request")
+            user = getattr(request, "user", None)
+            summaries = source_summaries(source_ids=[obj.pk], user=user)
+        return summaries.get(obj.pk, [])
 
 
 class InstrumentSerializer(FullCleanMixin, serializers.ModelSerializer):

@@ -189,3 +189,37 @@ def points_for_source(
         error=np.array([np.nan if e is None else e for e in cols[5]], dtype=float),
         upper_limit=np.array(cols[6], dtype=bool),
     )
+
+
+def source_summaries(*, source_ids: list[int], user: Any) -> dict[int, list[dict[str, Any]]]:
+    """Per source and band: number of points and limits and the time range, visible uploads only.
+
+    One grouped query for any number of sources (list pages do not query per row).
+    """
+    from django.db.models import Count, Max, Min
+
+    visible = uploads_visible(user=user).filter(sources__in=source_ids).values("pk")
+    rows = (
+        FluxPoint.objects.filter(source_id__in=source_ids, upload_id__in=visible)
+        .values("source_id", "band__slug", "band__kind")
+        .annotate(
+            n=Count("id"),
+            n_upper_limits=Count("id", filter=Q(upper_limit=True)),
+            t_min=Min("t"),
+            t_max=Max("t"),
+        )
+        .order_by("source_id", "band__slug")
+    )
+    out: dict[int, list[dict[str, Any]]] = {i: [] for i in source_ids}
+    for r in rows:
+        out[r["source_id"]].append(
+            {
+                "band": r["band__slug"],
+                "kind": r["band__kind"],
+                "n_points": r["n"],
+                "n_upper_limits": r["n_upper_limits"],
+                "time_min": r["t_min"],
+                "time_max": r["t_max"],
+            }
+        )
+    return out

@@ -21,6 +21,7 @@ from api.serializers import (
     SourceSerializer,
 )
 from lcstore.models import Band, CalibrationOffset, HostFlux, Instrument, Source
+from lcstore.queries import source_summaries
 
 __all__ = [
     "BandViewSet",
@@ -50,6 +51,15 @@ class SourceViewSet(_Curated):
     serializer_class = SourceSerializer
     filterset_class = SourceFilter
     lookup_field = "slug"
+
+    def list(self, request, *args, **kwargs):  # type: ignore[no-untyped-def]
+        qs = self.filter_queryset(self.get_queryset())
+        page = self.paginate_queryset(qs)
+        items = list(page if page is not None else qs)
+        context = self.get_serializer_context()
+        context["summaries"] = source_summaries(source_ids=[s.pk for s in items], user=request.user)
+        data = SourceSerializer(items, many=True, context=context).data
+        return self.get_paginated_response(data) if page is not None else Response(data)
 
 
 class InstrumentViewSet(_Curated):
