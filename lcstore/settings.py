@@ -100,6 +100,10 @@ if _RUNNING_TESTS and not os.environ.get("DATABASE_URL"):
 
 if os.environ.get("DATABASE_URL"):
     DATABASES = {"default": dj_database_url.parse(os.environ["DATABASE_URL"], conn_max_age=60)}
+    # One test database per pytest process, so concurrent runs never share one.
+    DATABASES["default"]["TEST"] = {
+        "NAME": os.environ.get("LCSTORE_TEST_DB_NAME") or f"test_lcstore_{os.getpid()}"
+    }
 else:
     DATABASES = {
         "default": {
