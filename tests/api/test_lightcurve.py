@@ -248,3 +248,27 @@ def test_json_answer_has_provenance_and_time_system(loaded):
     }
     assert {p["uploader"] for p in body["provenance"]["uploads"]} == {"ada"}
     assert json.dumps(body)  # NaN never leaks into JSON
+
+
+def test_time_formats_out(loaded):
+    """JD = MJD + 2400000.5 (REFERENCES §3); isot strings as astropy writes them (TDB)."""
+    from astropy.time import Time
+
+    c = loaded["client"]
+    mjd = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r").json()["rows"]
+    jd = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r&time_format=jd").json()
+    assert jd["time"]["format"] == "jd"
+    assert [x["time"] for x in jd["rows"]] == pytest.approx([x["time"] + 2400000.5 for x in mjd])
+    iso = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r&time_format=isot").json()["rows"]
+    assert iso[0]["time"] == Time(mjd[0]["time"], format="mjd", scale="tdb").isot
+
+
+def test_schema_and_docs_are_served(loaded):
+    c = loaded["client"]
+    r = c.get("/api/v1/schema/?format=json")
+    assert r.status_code == 200
+    paths = r.json()["paths"]
+    for p in ("/api/v1/sources/{slug}/lightcurve/", "/api/v1/uploads/", "/api/v1/jobs/",
+              "/api/v1/sources/{slug}/lags/"):
+        assert p in paths
+    assert c.get("/api/v1/docs/").status_code == 200
