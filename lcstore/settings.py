@@ -56,6 +56,7 @@ INSTALLED_APPS = [
     "django_tasks_db",
     "lcstore",
     "api",
+    "web",
 ]
 
 MIDDLEWARE = [
@@ -189,7 +190,7 @@ if os.environ.get("REDIS_URL"):
 else:
     CACHES = {"default": {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}}
 
-LOGIN_URL = "/admin/login/"
+LOGIN_URL = "/login/"
 
 if not DEBUG:
     SESSION_COOKIE_SECURE = _env_bool("LCSTORE_SECURE_COOKIES", False)
