@@ -19,6 +19,8 @@ from rest_framework.renderers import BaseRenderer
 __all__ = [
     "CSVRenderer",
     "ECSVRenderer",
+    "PNGRenderer",
+    "SVGRenderer",
     "VOTableRenderer",
     "csv_stream",
     "json_safe",
@@ -55,6 +57,17 @@ class ECSVRenderer(_TextRenderer):
 class VOTableRenderer(_TextRenderer):
     media_type = "application/x-votable+xml"
     format = "votable"
+
+
+class PNGRenderer(_TextRenderer):
+    media_type = "image/png"
+    format = "png"
+    charset = None
+
+
+class SVGRenderer(_TextRenderer):
+    media_type = "image/svg+xml"
+    format = "svg"
 
 
 def json_safe(a: np.ndarray) -> list:

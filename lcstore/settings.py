@@ -140,7 +140,38 @@ LCSTORE_MAX_SIMULATIONS = _env_int("LCSTORE_MAX_SIMULATIONS", 10_000)
 LCSTORE_SYNC_SIMULATIONS = _env_int("LCSTORE_SYNC_SIMULATIONS", 200)
 LCSTORE_PUBLIC_READ = _env_bool("LCSTORE_PUBLIC_READ", False)
 
+# Request rates (api/throttles.py; OWASP API4): "<n>/<s|min|hour|day>" per account, or
+# per client address when anonymous; "off" switches a budget off. Over a budget the
+# answer is 429 with Retry-After. Behind N reverse proxies set LCSTORE_NUM_PROXIES=N
+# so the client address is taken from X-Forwarded-For (0: the socket's address).
+def _env_rate(name: str, default: str) -> str | None:
+    value = os.environ.get(name, default).strip()
+    if value.lower() in {"", "off", "none"}:
+        return None
+    n, _, period = value.partition("/")
+    if not (n.isdigit() and period[:1] in {"s", "m", "h", "d"}):
+        from django.core.exceptions import ImproperlyConfigured
+
+        raise ImproperlyConfigured(f"{name}={value!r}: expected e.g. '60/hour' or 'off'")
+    return value
+
+
+LCSTORE_THROTTLE_UPLOADS = _env_rate("LCSTORE_THROTTLE_UPLOADS", "60/hour")
+LCSTORE_THROTTLE_HEAVY = _env_rate("LCSTORE_THROTTLE_HEAVY", "600/hour")
+LCSTORE_THROTTLE_READ = _env_rate("LCSTORE_THROTTLE_READ", "10000/hour")
+LCSTORE_NUM_PROXIES = _env_int("LCSTORE_NUM_PROXIES", 0)
+
 REST_FRAMEWORK = {
+    "DEFAULT_THROTTLE_CLASSES": [
+        "api.throttles.ReadThrottle",
+        "api.throttles.ScopedThrottle",
+    ],
+    "DEFAULT_THROTTLE_RATES": {
+        "uploads": LCSTORE_THROTTLE_UPLOADS,
+        "heavy": LCSTORE_THROTTLE_HEAVY,
+        "read": LCSTORE_THROTTLE_READ,
+    },
+    "NUM_PROXIES": LCSTORE_NUM_PROXIES,
     "DEFAULT_AUTHENTICATION_CLASSES": [
         "rest_framework.authentication.TokenAuthentication",
         "rest_framework.authentication.SessionAuthentication",
@@ -191,6 +222,11 @@ else:
     CACHES = {"default": {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}}
 
 LOGIN_URL = "/login/"
+
+# Cached curve answers (keyed by data versions, so never stale; see api/cache.py).
+LCSTORE_CACHE_ANSWERS = _env_bool("LCSTORE_CACHE_ANSWERS", True)
+LCSTORE_CACHE_SECONDS = _env_int("LCSTORE_CACHE_SECONDS", 3600)
+LCSTORE_CACHE_MAX_BYTES = _env_int("LCSTORE_CACHE_MAX_BYTES", 5 * 1024 * 1024)
 
 if not DEBUG:
     SESSION_COOKIE_SECURE = _env_bool("LCSTORE_SECURE_COOKIES", False)

@@ -18,6 +18,14 @@ iers.conf.auto_download = False
 iers.conf.auto_max_age = None
 
 
+@pytest.fixture(autouse=True)
+def _fresh_cache() -> None:
+    """Cached answers never cross tests (the cache outlives each test's transaction)."""
+    from django.core.cache import cache
+
+    cache.clear()
+
+
 @pytest.fixture
 def make_user(db: Any) -> Callable[..., Any]:
     from django.contrib.auth.models import Group, User

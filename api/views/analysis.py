@@ -123,6 +123,8 @@ def _csv(header: list[str], columns: dict[str, Any], name: str) -> StreamingHttp
     description="Flux–flux correlation and log–log slope of two bands.",
 )
 class CorrelationView(ComputedView):
+    throttle_scope = "heavy"
+
     def get(self, request: Request, slug: str) -> Any:
         source = self.source(slug)
         q = CorrelationQuery(data=request.query_params)
@@ -150,6 +152,8 @@ class CorrelationView(ComputedView):
     description="Lag function of y against x; positive lag: y lags behind x.",
 )
 class LagsView(ComputedView):
+    throttle_scope = "heavy"
+
     def get(self, request: Request, slug: str) -> Any:
         source = self.source(slug)
         q = LagsQuery(data=request.query_params)
@@ -188,6 +192,8 @@ class VariabilityQuery(serializers.Serializer):
     description="Per-band variability: F_var (Vaughan et al. 2003), chi-square.",
 )
 class VariabilityView(ComputedView):
+    throttle_scope = "heavy"
+
     def get(self, request: Request, slug: str) -> Any:
         source = self.source(slug)
         q = VariabilityQuery(data=request.query_params)
@@ -227,6 +233,8 @@ class SedQuery(serializers.Serializer):
     description="Quasi-simultaneous nuFnu per band around an epoch.",
 )
 class SedView(ComputedView):
+    throttle_scope = "heavy"
+
     def get(self, request: Request, slug: str) -> Any:
         source = self.source(slug)
         q = SedQuery(data=request.query_params)

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import json
 from typing import Any
 
 import numpy as np
 from astropy.table import Table
 from django.conf import settings
-from django.http import HttpResponse, StreamingHttpResponse
+from django.http import HttpResponse, HttpResponseBase, StreamingHttpResponse
 from django.shortcuts import get_object_or_404
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import OpenApiParameter, extend_schema
@@ -17,10 +18,13 @@ from rest_framework.request import Request
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
+from api.cache import cached_answer
 from api.permissions import ReadAccess
 from api.renderers import (
     CSVRenderer,
     ECSVRenderer,
+    PNGRenderer,
+    SVGRenderer,
     VOTableRenderer,
     csv_stream,
     json_safe,
@@ -284,55 +288,94 @@ def lightcurve_table(lc: Lightcurve, time_format: str) -> Table:
     description="Points or bins of one source, merged over instruments, in the unit asked.",
 )
 class LightcurveView(ComputedView):
+    renderer_classes = [*ComputedView.renderer_classes, PNGRenderer, SVGRenderer]
+
     def get(self, request: Request, slug: str) -> Any:
         source = self.source(slug)
         q = LightcurveQuery(data=request.query_params)
         q.is_valid(raise_exception=True)
         params = q.validated_data
-        lc = lightcurve_build(source=source, user=request.user, request=_curve_request(params))
         fmt = self.out_format
-        tf = params["time_format"]
-        if fmt == "csv":
-            header = BINNED if lc.binned else UNBINNED
-            response = StreamingHttpResponse(
-                csv_stream(header, _blocks(lc, tf)), content_type="text/csv; charset=utf-8"
+        curve_request = _curve_request(params)
+
+        def build() -> HttpResponseBase:
+            lc = lightcurve_build(source=source, user=request.user, request=curve_request)
+            return render_lightcurve(lc, params, fmt)
+
+        return cached_answer(request, source, fmt, build)
+
+
+def render_lightcurve(lc: Lightcurve, params: dict[str, Any], fmt: str) -> HttpResponseBase:
+    """The answer in the negotiated format; raw CSV streams, everything else is one body."""
+    tf = params["time_format"]
+    source = lc.source
+    if fmt == "csv":
+        header = BINNED if lc.binned else UNBINNED
+        chunks = csv_stream(header, _blocks(lc, tf))
+        if lc.binned:
+            response: HttpResponseBase = HttpResponse(
+                b"".join(chunks), content_type="text/csv; charset=utf-8"
             )
-            response["Content-Disposition"] = f'inline; filename="{source.slug}-lightcurve.csv"'
-            return response
-        if fmt in ("ecsv", "votable"):
-            body = table_bytes(lightcurve_table(lc, tf), fmt)
-            ctype = "text/x-ecsv" if fmt == "ecsv" else "application/x-votable+xml"
-            return HttpResponse(body, content_type=ctype)
-        cols = BINNED if lc.binned else UNBINNED
-        rows: list[dict[str, Any]] = []
-        for block in _blocks(lc, tf):
-            lists = {k: json_safe(np.asarray(block[k])) for k in cols}
-            rows.extend(
-                dict(zip(cols, vals, strict=True)) for vals in zip(*lists.values(), strict=True)
-            )
-        return Response(
-            {
-                "source": {
-                    "slug": source.slug,
-                    "name": source.name,
-                    "ra": source.ra,
-                    "dec": source.dec,
-                    "redshift": source.redshift,
-                    "ebv": source.ebv,
-                },
-                "time": {
-                    "format": tf,
-                    "scale": "tdb",
-                    "reference": "BARYCENTER",
-                    "description": _time_description(tf),
-                },
-                "binned": lc.binned,
-                "bin": params.get("bin"),
-                "as_of": params["as_of"].isoformat() if params.get("as_of") else None,
-                "bands": [_band_meta(c) for c in lc.curves],
-                "provenance": {"uploads": _provenance(lc)},
-                "columns": cols,
-                "n_rows": len(rows),
-                "rows": rows,
-            }
+        else:
+            response = StreamingHttpResponse(chunks, content_type="text/csv; charset=utf-8")
+        response["Content-Disposition"] = f'inline; filename="{source.slug}-lightcurve.csv"'
+        return response
+    if fmt in ("ecsv", "votable"):
+        body = table_bytes(lightcurve_table(lc, tf), fmt)
+        ctype = "text/x-ecsv" if fmt == "ecsv" else "application/x-votable+xml"
+        return HttpResponse(body, content_type=ctype)
+    if fmt in ("png", "svg"):
+        return plot_response(lc, tf, fmt)
+    cols = BINNED if lc.binned else UNBINNED
+    rows: list[dict[str, Any]] = []
+    for block in _blocks(lc, tf):
+        lists = {k: json_safe(np.asarray(block[k])) for k in cols}
+        rows.extend(
+            dict(zip(cols, vals, strict=True)) for vals in zip(*lists.values(), strict=True)
         )
+    body = {
+        "source": {
+            "slug": source.slug,
+            "name": source.name,
+            "ra": source.ra,
+            "dec": source.dec,
+            "redshift": source.redshift,
+            "ebv": source.ebv,
+        },
+        "time": {
+            "format": tf,
+            "scale": "tdb",
+            "reference": "BARYCENTER",
+            "description": _time_description(tf),
+        },
+        "binned": lc.binned,
+        "bin": params.get("bin"),
+        "as_of": params["as_of"].isoformat() if params.get("as_of") else None,
+        "bands": [_band_meta(c) for c in lc.curves],
+        "provenance": {"uploads": _provenance(lc)},
+        "columns": cols,
+        "n_rows": len(rows),
+        "rows": rows,
+    }
+    return HttpResponse(json.dumps(body, allow_nan=False), content_type="application/json")
+
+
+def plot_response(lc: Lightcurve, time_format: str, fmt: str) -> HttpResponse:
+    """Stacked panels, one per band, on a shared time axis (matplotlib on the server)."""
+    from lcstore.plots import lightcurve_figure
+
+    panels = [
+        {
+            "band": c.band.slug,
+            "unit": c.unit_label,
+            "time": c.time,
+            "value": c.value,
+            "error": c.error,
+            "upper_limit": c.upper_limit,
+            "is_magnitude": "mag" in c.unit_label,
+        }
+        for c in lc.curves
+    ]
+    body = lightcurve_figure(panels, time_label="MJD (TDB, barycentric)", fmt=fmt)
+    ctype = "image/png" if fmt == "png" else "image/svg+xml"
+    return HttpResponse(body, content_type=ctype)

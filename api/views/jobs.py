@@ -13,6 +13,7 @@ from rest_framework.exceptions import ValidationError
 from rest_framework.request import Request
 from rest_framework.response import Response
 
+from api.throttles import ReadThrottle, WriteScopedThrottle
 from api.views.analysis import CorrelationQuery, LagsQuery, lag_params
 from lcstore import roles
 from lcstore.jobs import JOB_KINDS, job_enqueue
@@ -79,6 +80,8 @@ def _job_parameters(kind: str, raw: dict[str, Any]) -> dict[str, Any]:
 
 class JobViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.GenericViewSet):
     serializer_class = JobSerializer
+    throttle_classes = [ReadThrottle, WriteScopedThrottle]
+    throttle_scope = "heavy"
 
     def get_queryset(self):  # type: ignore[no-untyped-def]
         qs = Job.objects.select_related("owner", "source")

@@ -19,6 +19,7 @@ from rest_framework.response import Response
 from api.filters import UploadFilter
 from api.permissions import ContributorsUpload
 from api.serializers import UploadSerializer
+from api.throttles import ReadThrottle, WriteScopedThrottle
 from lcstore import roles
 from lcstore.ingest.readers import FORMATS
 from lcstore.models import Upload
@@ -81,6 +82,8 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
     permission_classes = [ContributorsUpload]
     filterset_class = UploadFilter
     parser_classes = [MultiPartParser, FormParser]
+    throttle_classes = [ReadThrottle, WriteScopedThrottle]
+    throttle_scope = "uploads"
 
     def get_queryset(self):  # type: ignore[no-untyped-def]
         qs = (
