@@ -304,7 +304,7 @@ def to_bjd_tdb_mjd(
 
     BJD_TDB = t_TDB + n·r/c, the Roemer delay of the observer at position r
     (from the barycentre) towards the source direction n (Eastman, Siverd &
-    Gaudi 2010, PASP 122, 935, eq. 2 without the Shapiro and Einstein terms
+    Gaudi 2010, PASP 122, 935, eq. 2 without the Shapiro and time-dilation terms
     below a microsecond), computed with astropy ``Time.light_travel_time``.
 
     Parameters
