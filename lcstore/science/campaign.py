@@ -125,8 +125,8 @@ OPTICAL_BANDS: dict[str, tuple[str, float, float]] = {
     "R": ("Cousins R (Vega)", 6410.0, 3064.0),
     "J": ("J (Vega)", 12200.0, 1589.0),
 }
-GAMMA_BAND = "gamma-0.1-300gev"
-XRAY_BAND = "xray-0.3-10kev"
+GAMMA_BAND = "gamma-100mev-300gev"
+XRAY_BAND = "xray-300ev-10kev"
 GAMMA_PHOTON_INDEX = 2.2
 XRAY_PHOTON_INDEX = 2.0
 #: Energy flux (0.3–10 keV, erg cm⁻² s⁻¹) of one count per second for the X-ray

@@ -45,6 +45,11 @@ class Command(BaseCommand):
 
     def add_arguments(self, parser: Any) -> None:
         parser.add_argument("--manifest", default=None, help="path of campaign.json")
+        parser.add_argument(
+            "--sources",
+            default=None,
+            help="comma list of source slugs: upload only their files (and multi-source ones)",
+        )
 
     def handle(self, *args: Any, **opts: Any) -> None:
         manifest_path = Path(
@@ -58,7 +63,10 @@ class Command(BaseCommand):
             self._catalogue(m)
             users = self._people(m)
         accepted = 0
+        only = set(opts["sources"].split(",")) if opts.get("sources") else None
         for up in m["uploads"]:
+            if only is not None and up.get("source") and up["source"] not in only:
+                continue
             path = base / up["file"]
             uploader = users[up["uploader"]]
             params = UploadParams(
