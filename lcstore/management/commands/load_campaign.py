@@ -46,6 +46,11 @@ class Command(BaseCommand):
     def add_arguments(self, parser: Any) -> None:
         parser.add_argument("--manifest", default=None, help="path of campaign.json")
         parser.add_argument(
+            "--catalogue-only",
+            action="store_true",
+            help="create sources, instruments, bands, offsets and accounts; upload nothing",
+        )
+        parser.add_argument(
             "--sources",
             default=None,
             help="comma list of source slugs: upload only their files (and multi-source ones)",
@@ -63,6 +68,9 @@ class Command(BaseCommand):
             self._catalogue(m)
             users = self._people(m)
         accepted = 0
+        if opts.get("catalogue_only"):
+            self.stdout.write(self.style.SUCCESS("catalogue and accounts created; no uploads"))
+            return
         only = set(opts["sources"].split(",")) if opts.get("sources") else None
         for up in m["uploads"]:
             if only is not None and up.get("source") and up["source"] not in only:
