@@ -34,8 +34,10 @@ def _env_int(name: str, default: int) -> int:
 
 
 DEBUG = _env_bool("DEBUG", False)
-# The fallback key only serves the local demo; production sets SECRET_KEY.
-SECRET_KEY = os.environ.get("SECRET_KEY") or "insecure-demo-key-set-SECRET_KEY-in-production"
+# The fallback key only serves the local demo; production sets SECRET_KEY
+# (`check --deploy` refuses the fallback: lcstore/checks.py).
+LCSTORE_DEMO_SECRET_KEY = "insecure-demo-key-set-SECRET_KEY-in-production"
+SECRET_KEY = os.environ.get("SECRET_KEY") or LCSTORE_DEMO_SECRET_KEY
 ALLOWED_HOSTS = [
     h.strip() for h in os.environ.get("ALLOWED_HOSTS", "localhost,127.0.0.1,testserver").split(",")
 ]
@@ -98,6 +100,10 @@ DATA_DIR = Path(os.environ.get("LCSTORE_DATA_DIR", BASE_DIR / "var"))
 _RUNNING_TESTS = "pytest" in sys.modules
 if _RUNNING_TESTS and not os.environ.get("DATABASE_URL"):
     os.environ["DATABASE_URL"] = "postgres://postgres@127.0.0.1:5432/postgres"
+
+if _RUNNING_TESTS:
+    # Fast hashing for the accounts tests create (never used outside the suite).
+    PASSWORD_HASHERS = ["django.contrib.auth.hashers.MD5PasswordHasher"]
 
 if os.environ.get("DATABASE_URL"):
     DATABASES = {"default": dj_database_url.parse(os.environ["DATABASE_URL"], conn_max_age=60)}
@@ -228,6 +234,42 @@ LCSTORE_CACHE_ANSWERS = _env_bool("LCSTORE_CACHE_ANSWERS", True)
 LCSTORE_CACHE_SECONDS = _env_int("LCSTORE_CACHE_SECONDS", 3600)
 LCSTORE_CACHE_MAX_BYTES = _env_int("LCSTORE_CACHE_MAX_BYTES", 5 * 1024 * 1024)
 
-if not DEBUG:
-    SESSION_COOKIE_SECURE = _env_bool("LCSTORE_SECURE_COOKIES", False)
-    CSRF_COOKIE_SECURE = SESSION_COOKIE_SECURE
+# ============================================================== production
+# Django deployment checklist (docs.djangoproject.com/en/5.2/howto/deployment/checklist/).
+# `manage.py check --deploy --fail-level WARNING` is clean with this environment:
+#
+#   SECRET_KEY=<50 or more random characters>     (required: lcstore.E001 without it)
+#   ALLOWED_HOSTS=lcstore.example.org             (the public host names, comma list)
+#   DATABASE_URL=postgres://...                   (lcstore.W002 on the demo SQLite file)
+#   LCSTORE_HTTPS=1                               (the site is served over HTTPS), or
+#   LCSTORE_BEHIND_TLS_PROXY=1                    (TLS ends at a reverse proxy that sets
+#                                                  X-Forwarded-Proto and strips it from
+#                                                  clients; implies LCSTORE_HTTPS=1)
+#   DEBUG unset or 0
+#
+# LCSTORE_HTTPS=1 gives secure session and CSRF cookies, the HTTP -> HTTPS redirect and
+# HSTS for LCSTORE_HSTS_SECONDS (default one year) with includeSubDomains and preload
+# (LCSTORE_HSTS_INCLUDE_SUBDOMAINS=0 / LCSTORE_HSTS_PRELOAD=0 to leave them out;
+# LCSTORE_SSL_REDIRECT=0 when the proxy redirects). LCSTORE_CSRF_TRUSTED_ORIGINS
+# (comma list of https://host) for the browsable API and admin behind another origin.
+# LCSTORE_ALLOW_INSECURE_KEY=1 accepts the demo key (a throwaway public demo only).
+# Without these variables (the demo, the test suite) plain HTTP works as before.
+LCSTORE_BEHIND_TLS_PROXY = _env_bool("LCSTORE_BEHIND_TLS_PROXY", False)
+LCSTORE_HTTPS = _env_bool("LCSTORE_HTTPS", False) or LCSTORE_BEHIND_TLS_PROXY
+LCSTORE_ALLOW_INSECURE_KEY = _env_bool("LCSTORE_ALLOW_INSECURE_KEY", False)
+if LCSTORE_BEHIND_TLS_PROXY:
+    SECURE_PROXY_SSL_HEADER = ("HTTP_X_FORWARDED_PROTO", "https")
+SESSION_COOKIE_SECURE = _env_bool("LCSTORE_SECURE_COOKIES", LCSTORE_HTTPS)
+CSRF_COOKIE_SECURE = SESSION_COOKIE_SECURE
+SECURE_SSL_REDIRECT = LCSTORE_HTTPS and _env_bool("LCSTORE_SSL_REDIRECT", True)
+SECURE_HSTS_SECONDS = _env_int("LCSTORE_HSTS_SECONDS", 31_536_000) if LCSTORE_HTTPS else 0
+SECURE_HSTS_INCLUDE_SUBDOMAINS = _env_bool("LCSTORE_HSTS_INCLUDE_SUBDOMAINS", True)
+SECURE_HSTS_PRELOAD = _env_bool("LCSTORE_HSTS_PRELOAD", True)
+CSRF_TRUSTED_ORIGINS = [
+    o.strip() for o in os.environ.get("LCSTORE_CSRF_TRUSTED_ORIGINS", "").split(",") if o.strip()
+]
+# Django's defaults, stated because the checklist asks for them.
+SECURE_CONTENT_TYPE_NOSNIFF = True
+SECURE_REFERRER_POLICY = "same-origin"
+X_FRAME_OPTIONS = "DENY"
+SESSION_COOKIE_HTTPONLY = True

@@ -304,3 +304,20 @@ def test_cached_answers_follow_new_data(loaded, contributor, upload_file):
     assert after.content.decode().splitlines()[-1].startswith("r,60005.5,")
     c.post(f"/api/v1/uploads/{r.json()['id']}/retract/", {"reason": "test"}, format="json")
     assert c.get(url).content == first.content
+
+
+def test_png_and_svg_plots(loaded):
+    """Plots read back with Pillow and an XML parser: one panel per band."""
+    import xml.etree.ElementTree as ET
+
+    from PIL import Image
+
+    c = loaded["client"]
+    r = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r,gamma&bin=1d&format=png")
+    assert r.status_code == 200 and r["Content-Type"] == "image/png"
+    img = Image.open(io.BytesIO(r.content))
+    assert img.width == 1000
+    r = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r,gamma&unit=nufnu&format=svg")
+    root = ET.fromstring(r.content)
+    ids = {el.get("id") for el in root.iter() if el.get("id", "").startswith("axes_")}
+    assert ids == {"axes_1", "axes_2"}
