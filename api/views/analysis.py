@@ -6,14 +6,14 @@ from typing import Any
 
 import numpy as np
 from django.conf import settings
-from django.http import StreamingHttpResponse
+from django.http import HttpResponse, StreamingHttpResponse
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import OpenApiParameter, extend_schema
 from rest_framework import serializers
 from rest_framework.request import Request
 from rest_framework.response import Response
 
-from api.renderers import csv_stream
+from api.renderers import PNGRenderer, SVGRenderer, csv_stream
 from api.views.curves import ComputedView, comma_list
 from lcstore.analysis import (
     LagParams,
@@ -33,12 +33,20 @@ __all__ = [
     "lag_params",
 ]
 
-FORMAT_PARAM = OpenApiParameter("format", OpenApiTypes.STR, enum=["json", "csv"])
+FORMAT_PARAM = OpenApiParameter("format", OpenApiTypes.STR, enum=["json", "csv", "png", "svg"])
 
 
 def _finite(value: float | None, name: str) -> None:
     if value is not None and not np.isfinite(value):
         raise serializers.ValidationError({name: "must be a finite number"})
+
+
+def _floats(values: list) -> np.ndarray:
+    return np.array([np.nan if v is None else v for v in values], dtype=float)
+
+
+def _image(body: bytes, fmt: str) -> HttpResponse:
+    return HttpResponse(body, content_type="image/png" if fmt == "png" else "image/svg+xml")
 
 
 class CorrelationQuery(serializers.Serializer):
@@ -123,6 +131,7 @@ def _csv(header: list[str], columns: dict[str, Any], name: str) -> StreamingHttp
     description="Flux–flux correlation and log–log slope of two bands.",
 )
 class CorrelationView(ComputedView):
+    renderer_classes = [*ComputedView.renderer_classes, PNGRenderer, SVGRenderer]
     throttle_scope = "heavy"
 
     def get(self, request: Request, slug: str) -> Any:
@@ -143,6 +152,22 @@ class CorrelationView(ComputedView):
         )
         if self.out_format == "csv":
             return _csv(["time_x", "time_y", "x", "y"], result["pairs"], f"{slug}-pairs")
+        if self.out_format in ("png", "svg"):
+            from lcstore.plots import correlation_figure
+
+            units = result["units"]
+            body = correlation_figure(
+                _floats(result["pairs"]["x"]),
+                _floats(result["pairs"]["y"]),
+                x_label=f"{d['x']} ({units[d['x']]})",
+                y_label=f"{d['y']} ({units[d['y']]})",
+                slope=result.get("slope_bisector"),
+                intercept=result.get("intercept_bisector"),
+                slope_error=result.get("slope_bisector_error"),
+                fmt=self.out_format,
+                title=f"{source.name}: {d['y']} against {d['x']}",
+            )
+            return _image(body, self.out_format)
         return Response(result)
 
 
@@ -152,6 +177,7 @@ class CorrelationView(ComputedView):
     description="Lag function of y against x; positive lag: y lags behind x.",
 )
 class LagsView(ComputedView):
+    renderer_classes = [*ComputedView.renderer_classes, PNGRenderer, SVGRenderer]
     throttle_scope = "heavy"
 
     def get(self, request: Request, slug: str) -> Any:
@@ -177,6 +203,28 @@ class LagsView(ComputedView):
         )
         if self.out_format == "csv":
             return _csv(["lag", "coefficient", "error", "n_pairs"], result["rows"], f"{slug}-lags")
+        if self.out_format in ("png", "svg"):
+            from lcstore.plots import lags_figure
+
+            rows = result["rows"]
+            sig = result.get("significance")
+            levels = (
+                {"95": _floats(sig["level_95"]), "99": _floats(sig["level_99"])} if sig else None
+            )
+            body = lags_figure(
+                _floats(rows["lag"]),
+                _floats(rows["coefficient"]),
+                np.vstack([_floats(rows["error_lo"]), _floats(rows["error_hi"])]),
+                method=result["method"],
+                levels=levels,
+                peak=result["peak_lag"],
+                centroid=result["centroid_lag"],
+                x_name=d["x"],
+                y_name=d["y"],
+                fmt=self.out_format,
+                title=f"{source.name}: {result['method'].upper()}",
+            )
+            return _image(body, self.out_format)
         return Response(result)
 
 

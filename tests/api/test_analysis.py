@@ -200,3 +200,23 @@ def test_job_life_from_202_to_result(two_bands, django_capture_on_commit_callbac
     assert job["result"]["peak_lag"] == sync["peak_lag"]
     assert job["result"]["rows"] == sync["rows"]
     assert Job.objects.count() == 1
+
+
+def test_correlation_and_lag_plots(two_bands):
+    """PNG read back with Pillow; SVG parsed as XML (one axes group)."""
+    import io
+    import xml.etree.ElementTree as ET
+
+    from PIL import Image
+
+    c = two_bands["client"]
+    r = c.get("/api/v1/sources/tarn-7/correlation/?x=r&y=gamma&n_boot=50&format=png")
+    assert r.status_code == 200 and r["Content-Type"] == "image/png"
+    assert Image.open(io.BytesIO(r.content)).size == (640, 560)
+    r = c.get(
+        "/api/v1/sources/tarn-7/lags/?x=r&y=gamma&lag_min=-10&lag_max=10&lag_step=1"
+        "&n_sig=5&format=svg"
+    )
+    assert r.status_code == 200
+    root = ET.fromstring(r.content)
+    assert "axes_1" in {el.get("id") for el in root.iter()}
