@@ -16,11 +16,12 @@ from lcstore.ingest.load import points_load
 from lcstore.ingest.pipeline import (
     BandRecord,
     InstrumentRecord,
+    PreparedPoints,
     SourceRecord,
     UploadInvalid,
     prepare_points,
 )
-from lcstore.ingest.readers import FileProblem, ReadError, read_upload
+from lcstore.ingest.readers import FileProblem, RawTable, ReadError, read_upload
 from lcstore.models import Band, Instrument, Source, StoredFile, Upload, UploadStatus
 
 __all__ = [
@@ -28,8 +29,12 @@ __all__ = [
     "UploadForbidden",
     "UploadInvalid",
     "UploadParams",
+    "checksum_lock",
     "upload_create",
+    "upload_prepare",
+    "upload_read",
     "upload_retract",
+    "upload_store",
 ]
 
 
@@ -139,38 +144,34 @@ def _metadata_snapshot(instrument_id: int, source_ids: list[int], band_ids: list
     }
 
 
-def _lock_checksum(sha256: str) -> None:
-    """Serialise concurrent uploads of the same bytes, so the 409 rule holds under a race."""
+def checksum_lock(sha256: str) -> None:
+    """Serialise concurrent writes of the same bytes, so the 409 rule holds under a race."""
     if connection.vendor == "postgresql":
         with connection.cursor() as cursor:
             cursor.execute("SELECT pg_advisory_xact_lock(%s)", [int(sha256[:15], 16)])
 
 
-def upload_create(
+def upload_read(
     *,
-    uploader: Any,
     data: bytes,
     file_name: str,
-    params: UploadParams,
+    format: str | None,
     max_rows: int | None = None,
     max_columns: int | None = None,
-) -> Upload:
-    """Read, check, convert and store one file, all or nothing.
-
-    Raises :class:`UploadInvalid` (every problem found, nothing stored) or
-    :class:`UploadConflict` (same bytes already accepted for the same source).
-    """
-    sha256 = hashlib.sha256(data).hexdigest()
+) -> RawTable:
+    """The file's table, or :class:`UploadInvalid` naming every problem the reader found."""
     try:
-        raw = read_upload(
-            data,
-            filename=file_name,
-            format=params.format,
-            max_rows=max_rows,
-            max_columns=max_columns,
+        return read_upload(
+            data, filename=file_name, format=format, max_rows=max_rows, max_columns=max_columns
         )
     except ReadError as exc:
         raise UploadInvalid(exc.problems or [FileProblem(None, None, str(exc))]) from None
+
+
+def upload_prepare(
+    *, raw: RawTable, params: UploadParams
+) -> tuple[InstrumentRecord, PreparedPoints]:
+    """Check and convert a read file with the catalogue as it is now (no writes)."""
     instrument, sources, bands = _catalogue(params)
     prepared = prepare_points(
         raw,
@@ -188,11 +189,115 @@ def upload_create(
     )
     if len(prepared) == 0:
         raise _problem("the file has no data rows")
+    return instrument, prepared
+
+
+def upload_store(
+    *,
+    uploader: Any,
+    data: bytes,
+    sha256: str,
+    file_name: str,
+    raw: RawTable,
+    instrument: InstrumentRecord,
+    prepared: PreparedPoints,
+    params: UploadParams,
+    supersedes: Upload | None,
+    now: dt.datetime | None = None,
+    extra_parameters: dict[str, Any] | None = None,
+) -> Upload:
+    """Write the file (once per checksum), the upload record and its points; retire ``supersedes``.
+
+    Runs inside the caller's transaction; the caller has checked the rights and the
+    checksum rule. ``sha256`` is the checksum of ``data``; ``extra_parameters`` are
+    added to the upload's recorded parameters.
+    """
     source_ids = sorted({int(i) for i in np.unique(prepared.source_id)})
     band_ids = sorted({int(i) for i in np.unique(prepared.band_id)})
+    if not StoredFile.objects.filter(pk=sha256).exists():
+        StoredFile.objects.create(sha256=sha256, size=len(data), content=data)
+    now = now or timezone.now()
+    ts = prepared.time
+    upload = Upload.objects.create(
+        uploader=uploader,
+        created_at=now,
+        file_id=sha256,
+        file_name=file_name[:255],
+        format=raw.format,
+        source=Source.objects.get(slug=params.source) if params.source else None,
+        band=Band.objects.get(slug=params.band) if params.band else None,
+        instrument_id=instrument.id,
+        columns=prepared.columns,
+        value_unit=prepared.value_unit,
+        time_format=ts.time_format,
+        time_scale=ts.time_scale,
+        time_reference=ts.time_reference,
+        met_epoch=ts.met_epoch,
+        parameters={
+            "time": {
+                "format": ts.time_format,
+                "scale": ts.time_scale,
+                "reference": ts.time_reference,
+                "met_epoch_mjd": ts.met_epoch,
+                "met_unit_s": ts.met_unit_s,
+                "time_zero": ts.time_zero,
+                "from": ts.origin,
+                "stored_as": "MJD (TDB) at the solar-system barycentre (BJD_TDB - 2400000.5)",
+            },
+            "value_unit": prepared.value_unit,
+            "metadata": _metadata_snapshot(instrument.id, source_ids, band_ids),
+            "read": {
+                k: v for k, v in raw.meta.items() if k in ("delimiter", "header", "encoding", "hdu")
+            },
+            **(extra_parameters or {}),
+        },
+        reduction=params.reduction,
+        reference=params.reference,
+        embargo_until=params.embargo_until,
+        supersedes=supersedes,
+        n_rows=len(raw.columns),
+        n_points=len(prepared),
+        n_upper_limits=int(prepared.upper_limit.sum()),
+        time_min=float(prepared.t.min()),
+        time_max=float(prepared.t.max()),
+        warnings=prepared.warnings,
+    )
+    upload.sources.set(source_ids)
+    points_load(prepared, instrument_id=instrument.id, upload_id=upload.pk)
+    if supersedes is not None:
+        supersedes.status = UploadStatus.SUPERSEDED
+        supersedes.superseded_at = now
+        supersedes.save(update_fields=["status", "superseded_at"])
+    return upload
+
+
+def upload_create(
+    *,
+    uploader: Any,
+    data: bytes,
+    file_name: str,
+    params: UploadParams,
+    max_rows: int | None = None,
+    max_columns: int | None = None,
+) -> Upload:
+    """Read, check, convert and store one file, all or nothing.
+
+    Raises :class:`UploadInvalid` (every problem found, nothing stored) or
+    :class:`UploadConflict` (same bytes already accepted for the same source).
+    """
+    sha256 = hashlib.sha256(data).hexdigest()
+    raw = upload_read(
+        data=data,
+        file_name=file_name,
+        format=params.format,
+        max_rows=max_rows,
+        max_columns=max_columns,
+    )
+    instrument, prepared = upload_prepare(raw=raw, params=params)
+    source_ids = sorted({int(i) for i in np.unique(prepared.source_id)})
 
     with transaction.atomic():
-        _lock_checksum(sha256)
+        checksum_lock(sha256)
         existing = (
             Upload.objects.filter(
                 file_id=sha256, status=UploadStatus.ACCEPTED, sources__in=source_ids
@@ -217,62 +322,17 @@ def upload_create(
                     f"upload {old.pk} is {old.status}; only an accepted upload can be superseded",
                     "supersedes",
                 )
-        if not StoredFile.objects.filter(pk=sha256).exists():
-            StoredFile.objects.create(sha256=sha256, size=len(data), content=data)
-        now = timezone.now()
-        ts = prepared.time
-        upload = Upload.objects.create(
+        return upload_store(
             uploader=uploader,
-            created_at=now,
-            file_id=sha256,
-            file_name=file_name[:255],
-            format=raw.format,
-            source=Source.objects.get(slug=params.source) if params.source else None,
-            band=Band.objects.get(slug=params.band) if params.band else None,
-            instrument_id=instrument.id,
-            columns=prepared.columns,
-            value_unit=prepared.value_unit,
-            time_format=ts.time_format,
-            time_scale=ts.time_scale,
-            time_reference=ts.time_reference,
-            met_epoch=ts.met_epoch,
-            parameters={
-                "time": {
-                    "format": ts.time_format,
-                    "scale": ts.time_scale,
-                    "reference": ts.time_reference,
-                    "met_epoch_mjd": ts.met_epoch,
-                    "met_unit_s": ts.met_unit_s,
-                    "time_zero": ts.time_zero,
-                    "from": ts.origin,
-                    "stored_as": "MJD (TDB) at the solar-system barycentre (BJD_TDB - 2400000.5)",
-                },
-                "value_unit": prepared.value_unit,
-                "metadata": _metadata_snapshot(instrument.id, source_ids, band_ids),
-                "read": {
-                    k: v
-                    for k, v in raw.meta.items()
-                    if k in ("delimiter", "header", "encoding", "hdu")
-                },
-            },
-            reduction=params.reduction,
-            reference=params.reference,
-            embargo_until=params.embargo_until,
+            data=data,
+            sha256=sha256,
+            file_name=file_name,
+            raw=raw,
+            instrument=instrument,
+            prepared=prepared,
+            params=params,
             supersedes=old,
-            n_rows=len(raw.columns),
-            n_points=len(prepared),
-            n_upper_limits=int(prepared.upper_limit.sum()),
-            time_min=float(prepared.t.min()),
-            time_max=float(prepared.t.max()),
-            warnings=prepared.warnings,
         )
-        upload.sources.set(source_ids)
-        points_load(prepared, instrument_id=instrument.id, upload_id=upload.pk)
-        if old is not None:
-            old.status = UploadStatus.SUPERSEDED
-            old.superseded_at = now
-            old.save(update_fields=["status", "superseded_at"])
-    return upload
 
 
 def upload_retract(*, upload: Upload, user: Any, reason: str) -> Upload:
