@@ -172,11 +172,24 @@ def lightcurve_build(*, source: Source, user: Any, request: CurveRequest) -> Lig
         except binning.BinningError as exc:
             raise CurveRequestError(str(exc)) from None
 
-    offsets = {
-        (o.instrument_id, o.band_id): o.factor
-        for o in CalibrationOffset.objects.filter(band__in=bands)
-    }
-    hosts = {h.band_id: h for h in HostFlux.objects.filter(source=source, band__in=bands)}
+    band_ids = [b.pk for b in bands]
+    ebv = source.ebv
+    if request.as_of is not None:
+        # Curated values as they were then (django-simple-history), so an as_of answer
+        # is the answer the store gave at that instant.
+        then = {b.pk: b for b in Band.history.as_of(request.as_of).filter(pk__in=band_ids)}
+        bands = [then.get(b.pk, b) for b in bands]
+        offset_qs = CalibrationOffset.history.as_of(request.as_of).filter(band_id__in=band_ids)
+        host_qs = HostFlux.history.as_of(request.as_of).filter(
+            source_id=source.pk, band_id__in=band_ids
+        )
+        past = Source.history.as_of(request.as_of).filter(pk=source.pk).first()
+        ebv = past.ebv if past is not None else ebv
+    else:
+        offset_qs = CalibrationOffset.objects.filter(band_id__in=band_ids)
+        host_qs = HostFlux.objects.filter(source=source, band_id__in=band_ids)
+    offsets = {(o.instrument_id, o.band_id): o.factor for o in offset_qs}
+    hosts = {h.band_id: h for h in host_qs}
     inst_slugs = dict(Instrument.objects.values_list("pk", "slug"))
     if request.upper_limits == "exclude":
         points = points.take(~points.upper_limit)
@@ -194,7 +207,7 @@ def lightcurve_build(*, source: Source, user: Any, request: CurveRequest) -> Lig
                 offsets=offsets,
                 host=hosts.get(b.pk),
                 inst_slugs=inst_slugs,
-                ebv=source.ebv,
+                ebv=ebv,
             )
         )
     used_uploads = sorted(set(points.upload_id.tolist()))

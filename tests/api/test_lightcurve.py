@@ -321,3 +321,25 @@ def test_png_and_svg_plots(loaded):
     root = ET.fromstring(r.content)
     ids = {el.get("id") for el in root.iter() if el.get("id", "").startswith("axes_")}
     assert ids == {"axes_1", "axes_2"}
+
+
+def test_as_of_uses_the_calibration_offset_valid_then(loaded, catalogue, curator, client_for):
+    """An offset added later does not change an as_of answer from before it existed."""
+    import time
+
+    from django.utils import timezone
+
+    c = loaded["client"]
+    before = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r").json()["rows"]
+    moment = timezone.now().isoformat()
+    time.sleep(0.01)
+    r = client_for(curator).post(
+        "/api/v1/calibration-offsets/",
+        {"instrument": "fern-0p6", "band": "r", "factor": 0.5},
+        format="json",
+    )
+    assert r.status_code == 201
+    now = c.get("/api/v1/sources/tarn-7/lightcurve/?bands=r").json()["rows"]
+    then = c.get("/api/v1/sources/tarn-7/lightcurve/", {"bands": "r", "as_of": moment}).json()
+    assert then["rows"] == before
+    assert now != before
