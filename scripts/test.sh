@@ -47,4 +47,20 @@ fi
 
 bash tests/oracles/make_zdcf_env.sh || echo "warning: pyzdcf oracle environment not built; its tests will be skipped"
 
+# The browser test drives Debian's chromium with its chromium-driver (never a
+# downloaded browser). Installed once, when missing, as root with apt-get; any
+# failure only warns: tests/web/test_browser.py then skips and says why.
+if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then
+  if [ "$(id -u)" -eq 0 ] && command -v apt-get >/dev/null 2>&1; then
+    echo "Installing chromium and chromium-driver for the browser test"
+    if ! { DEBIAN_FRONTEND=noninteractive apt-get update -qq &&
+           DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium chromium-driver; } >/dev/null; then
+      echo "warning: chromium/chromium-driver could not be installed; the browser test will be skipped"
+    fi
+  else
+    echo "warning: /usr/bin/chromium or /usr/bin/chromedriver missing (install the Debian packages" \
+         "chromium and chromium-driver as root); the browser test will be skipped"
+  fi
+fi
+
 exec .venv/bin/pytest "$@"
