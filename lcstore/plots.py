@@ -258,8 +258,11 @@ def _draw_panel(ax: Axes, panel: Mapping[str, Any], index: int) -> None:
     is_mag = bool(panel.get("is_magnitude", False))
     unit = str(panel.get("unit") or "")
     band = str(panel.get("band") or f"band {index + 1}")
-    colour = PALETTE[index % len(PALETTE)]
-    marker = MARKERS[index % len(MARKERS)]
+    # A caller may give a stable "style" number per band (e.g. its catalogue id), so a
+    # band keeps its colour and symbol from plot to plot; otherwise the panel's position.
+    style = int(panel.get("style", index))
+    colour = PALETTE[style % len(PALETTE)]
+    marker = MARKERS[style % len(MARKERS)]
 
     shown = np.isfinite(t) & np.isfinite(v)
     positive = shown & (v > 0)

@@ -373,6 +373,7 @@ def plot_response(lc: Lightcurve, time_format: str, fmt: str) -> HttpResponse:
             "error": c.error,
             "upper_limit": c.upper_limit,
             "is_magnitude": "mag" in c.unit_label,
+            "style": c.band.pk,
             **({"quantity": "νF_ν"} if c.unit == "nufnu" else {}),
         }
         for c in lc.curves
