@@ -146,6 +146,7 @@ LCSTORE_MAX_SIMULATIONS = _env_int("LCSTORE_MAX_SIMULATIONS", 10_000)
 LCSTORE_SYNC_SIMULATIONS = _env_int("LCSTORE_SYNC_SIMULATIONS", 200)
 LCSTORE_PUBLIC_READ = _env_bool("LCSTORE_PUBLIC_READ", False)
 
+
 # Request rates (api/throttles.py; OWASP API4): "<n>/<s|min|hour|day>" per account, or
 # per client address when anonymous; "off" switches a budget off. Over a budget the
 # answer is 429 with Retry-After. Behind N reverse proxies set LCSTORE_NUM_PROXIES=N

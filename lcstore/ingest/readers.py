@@ -1008,6 +1008,28 @@ def _read_json(data: bytes, max_rows: int | None, max_columns: int | None) -> Ra
 
 # --------------------------------------------------------------------------- entry point
 
+# Control characters and lone UTF-16 surrogates (from JSON escapes): PostgreSQL
+# cannot store U+0000 and no surrogate can be written as UTF-8, so such names are refused.
+_UNSTORABLE = re.compile("[\x00-\x1f\x7f\ud800-\udfff]")
+
+
+def _printable(text: str) -> str:
+    """Text that can always be encoded as UTF-8 (lone surrogates become escapes)."""
+    return text.encode("utf-8", "backslashreplace").decode("utf-8")
+
+
+def _check_names(table: RawTable) -> None:
+    bad = [str(c) for c in table.columns.columns if _UNSTORABLE.search(str(c))]
+    if bad:
+        raise ReadError(
+            "column names may not hold control characters or unpaired surrogates",
+            [
+                FileProblem(None, _printable(name), "name holds a control character or surrogate")
+                for name in bad[:20]
+            ],
+        )
+
+
 _READERS: dict[str, Callable[[bytes, int | None, int | None], RawTable]] = {
     "csv": _read_csv,
     "ecsv": _read_ecsv,
@@ -1051,8 +1073,14 @@ def read_upload(
     if not data or data.isspace():
         raise ReadError("the file is empty")
     try:
-        return _READERS[fmt](data, max_rows, max_columns)
+        table = _READERS[fmt](data, max_rows, max_columns)
+        _check_names(table)
+        return table
     except ReadError as exc:
+        exc.message = _printable(exc.message)
+        for p in exc.problems:
+            p.message = _printable(p.message)
+            p.column = _printable(p.column) if p.column is not None else None
         if fmt == "csv":
             exc.row_label = "line"
         looks = _content_format(data[:4096])
