@@ -131,7 +131,7 @@ class UploadSerializer(serializers.ModelSerializer):
     band = serializers.SlugRelatedField(slug_field="slug", read_only=True)
     instrument = serializers.SlugRelatedField(slug_field="slug", read_only=True)
     retracted_by = serializers.CharField(
-        source="retracted_by.username", read_only=True, default=None
+        source="retracted_by.username", read_only=True, default=None, allow_null=True
     )
     superseded_by = serializers.SerializerMethodField()
     counts = serializers.SerializerMethodField()
@@ -175,8 +175,15 @@ class UploadSerializer(serializers.ModelSerializer):
         read_only_fields = fields
 
     def get_superseded_by(self, obj: Upload) -> int | None:
-        nxt = obj.superseded_by.order_by("created_at").first()
-        return nxt.pk if nxt else None
+        """The successor, named only to accounts that may see it (embargo)."""
+        from lcstore.queries import upload_visible_to
+
+        request = self.context.get("request")
+        user = getattr(request, "user", None)
+        for nxt in sorted(obj.superseded_by.all(), key=lambda u: u.created_at):
+            if upload_visible_to(nxt, user):
+                return nxt.pk
+        return None
 
     def get_counts(self, obj: Upload) -> dict[str, int]:
         return {

@@ -23,6 +23,7 @@ from lcstore.ingest.pipeline import (
 )
 from lcstore.ingest.readers import FileProblem, RawTable, ReadError, read_upload
 from lcstore.models import Band, Instrument, Source, StoredFile, Upload, UploadStatus
+from lcstore.queries import upload_visible_to
 
 __all__ = [
     "UploadConflict",
@@ -41,12 +42,15 @@ __all__ = [
 class UploadConflict(Exception):
     """The same bytes were already accepted for the same source."""
 
-    def __init__(self, existing: Upload, source_slugs: list[str]):
+    def __init__(self, existing: Upload, source_slugs: list[str], *, visible: bool = True):
         self.existing = existing
         self.source_slugs = source_slugs
+        # An embargoed upload of someone else is not named (its id would leak it).
+        self.visible = visible
+        named = f" as upload {existing.pk}" if visible else ""
         super().__init__(
             f"this file (sha256 {existing.file_id}) was already accepted for "
-            f"{', '.join(source_slugs)} as upload {existing.pk}"
+            f"{', '.join(source_slugs)}{named}"
         )
 
 
@@ -309,11 +313,12 @@ def upload_create(
             slugs = sorted(
                 existing.sources.filter(pk__in=source_ids).values_list("slug", flat=True)
             )
-            raise UploadConflict(existing, slugs)
+            raise UploadConflict(existing, slugs, visible=upload_visible_to(existing, uploader))
         old = None
         if params.supersedes is not None:
             old = Upload.objects.select_for_update().filter(pk=params.supersedes).first()
-            if old is None:
+            if old is None or not upload_visible_to(old, uploader):
+                # An upload the account may not see is answered as if it did not exist.
                 raise _problem(f"upload {params.supersedes} does not exist", "supersedes")
             if old.uploader_id != uploader.pk and not roles.is_curator(uploader):
                 raise UploadForbidden(f"upload {old.pk} belongs to another contributor")

@@ -168,6 +168,8 @@ class CalibrationOffsetViewSet(_Curated):
 
 
 class HostFluxViewSet(_Curated):
-    queryset = HostFlux.objects.select_related("source", "band")
+    queryset = HostFlux.objects.select_related("source", "band").order_by(
+        "source__slug", "band__slug", "id"
+    )
     serializer_class = HostFluxSerializer
     filterset_fields = ["source__slug", "band__slug"]

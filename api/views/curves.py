@@ -288,6 +288,7 @@ def lightcurve_table(lc: Lightcurve, time_format: str) -> Table:
     description="Points or bins of one source, merged over instruments, in the unit asked.",
 )
 class LightcurveView(ComputedView):
+    throttle_scope = "heavy"
     renderer_classes = [*ComputedView.renderer_classes, PNGRenderer, SVGRenderer]
 
     def get(self, request: Request, slug: str) -> Any:

@@ -61,6 +61,10 @@ class UploadInput(serializers.Serializer):
             mapping = json.loads(value)
         except json.JSONDecodeError as exc:
             raise serializers.ValidationError(f"columns is not valid JSON: {exc.msg}") from None
+        except RecursionError:
+            raise serializers.ValidationError(
+                "columns is not valid JSON: nested too deeply"
+            ) from None
         if not isinstance(mapping, dict) or not all(
             isinstance(k, str) and isinstance(v, str) for k, v in mapping.items()
         ):
@@ -156,11 +160,8 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
             )
         except UploadConflict as exc:
             return Response(
-                {
-                    "detail": str(exc),
-                    "existing_upload": exc.existing.pk,
-                    "sources": exc.source_slugs,
-                },
+                {"detail": str(exc), "sources": exc.source_slugs}
+                | ({"existing_upload": exc.existing.pk} if exc.visible else {}),
                 status=status.HTTP_409_CONFLICT,
             )
         except UploadForbidden as exc:
