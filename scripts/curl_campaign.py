@@ -60,7 +60,7 @@ def main(argv: list[str]) -> int:
             print(shlex.join(cmd))
             continue
         body = json.loads(subprocess.run(cmd, capture_output=True, text=True, check=True).stdout)
-        name = Path(cmd[6].split("@", 1)[1]).name
+        name = Path(next(a for a in cmd if a.startswith("file=@")).split("@", 1)[1]).name
         if "counts" in body:
             c = body["counts"]
             print(
