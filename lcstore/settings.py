@@ -205,6 +205,10 @@ SPECTACULAR_SETTINGS = {
     ),
     "VERSION": "1",
     "SERVE_INCLUDE_SCHEMA": False,
+    "POSTPROCESSING_HOOKS": [
+        "drf_spectacular.hooks.postprocess_schema_enums",
+        "api.schema.add_parameter_examples",
+    ],
 }
 
 TASKS = {
