@@ -9,7 +9,30 @@ from __future__ import annotations
 
 from typing import Any
 
-__all__ = ["EXAMPLES", "add_parameter_examples"]
+__all__ = ["DESCRIPTIONS", "EXAMPLES", "add_parameter_examples"]
+
+# Descriptions for parameters whose serializer field or filter carries none.
+DESCRIPTIONS: dict[str, str] = {
+    "as_of": "ISO 8601 instant: answer from the store as it was then (uploads, retractions, "
+    "supersessions and curated values)",
+    "band": "band slug",
+    "band__slug": "band slug",
+    "bands": "comma list of band slugs (default: every band with points)",
+    "bin": "bin width: 1d, 6h, 30min, 3600s, a number of days, or blocks (Bayesian blocks)",
+    "deredden": "correct for Galactic extinction with the source's E(B-V)",
+    "format": "rendering: json, csv, ecsv, votable (and png, svg where plots exist)",
+    "instrument": "instrument slug",
+    "min_pairs": "ZDCF: pairs per equal-population lag bin (Alexander 1997: at least 11)",
+    "n_boot": "bootstrap resamples of the pairs for the slope errors",
+    "p0": "Bayesian blocks false-alarm probability (Scargle et al. 2013)",
+    "psd_slope": "power-spectrum slope beta of the red-noise simulations (default: estimated)",
+    "r_v": "ratio of total to selective extinction R_V (3.1 by convention)",
+    "seed": "seed of the random generator (answers are reproducible)",
+    "slug": "source, instrument or band slug",
+    "source": "source slug",
+    "source__slug": "source slug",
+    "uploader": "user name of the uploader",
+}
 
 EXAMPLES: dict[str, Any] = {
     "bands": "R,gamma-100mev-300gev",
@@ -73,6 +96,8 @@ def add_parameter_examples(
                 continue
             for param in operation.get("parameters", []):
                 name = param.get("name")
+                if name in DESCRIPTIONS and not param.get("description"):
+                    param["description"] = DESCRIPTIONS[name]
                 if name in EXAMPLES and "example" not in param and "examples" not in param:
                     example = EXAMPLES[name]
                     schema = param.get("schema", {})
