@@ -11,7 +11,17 @@ from typing import Any
 from django.core.exceptions import ValidationError as DjangoValidationError
 from rest_framework import serializers
 
-from lcstore.models import Band, CalibrationOffset, HostFlux, Instrument, Source, Upload
+from lcstore.models import (
+    BAND_FIELDS,
+    INSTRUMENT_FIELDS,
+    SOURCE_FIELDS,
+    Band,
+    CalibrationOffset,
+    HostFlux,
+    Instrument,
+    Source,
+    Upload,
+)
 
 __all__ = [
     "BandSerializer",
@@ -47,7 +57,7 @@ class SourceSerializer(FullCleanMixin, serializers.ModelSerializer):
 
     class Meta:
         model = Source
-        fields = ["slug", "name", "aliases", "ra", "dec", "redshift", "ebv", "notes", "summary"]
+        fields = ["slug", *SOURCE_FIELDS, "summary"]
 
     def get_summary(self, obj: Source) -> list[dict[str, Any]]:
         summaries = self.context.get("summaries")
@@ -63,19 +73,7 @@ class SourceSerializer(FullCleanMixin, serializers.ModelSerializer):
 class InstrumentSerializer(FullCleanMixin, serializers.ModelSerializer):
     class Meta:
         model = Instrument
-        fields = [
-            "slug",
-            "name",
-            "kind",
-            "site_lon",
-            "site_lat",
-            "site_height",
-            "default_time_format",
-            "default_time_scale",
-            "default_time_reference",
-            "met_epoch",
-            "notes",
-        ]
+        fields = ["slug", *INSTRUMENT_FIELDS, "notes"]
 
 
 class BandSerializer(FullCleanMixin, serializers.ModelSerializer):
@@ -83,20 +81,7 @@ class BandSerializer(FullCleanMixin, serializers.ModelSerializer):
 
     class Meta:
         model = Band
-        fields = [
-            "slug",
-            "name",
-            "kind",
-            "wavelength_eff",
-            "mag_system",
-            "zero_point_jy",
-            "energy_min_kev",
-            "energy_max_kev",
-            "pivot_energy_kev",
-            "photon_index",
-            "counts_to_energy_flux",
-            "canonical_unit",
-        ]
+        fields = ["slug", *BAND_FIELDS, "canonical_unit"]
 
     def get_canonical_unit(self, obj: Band) -> str:
         from lcstore.science.units import canonical_unit

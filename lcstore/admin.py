@@ -12,7 +12,16 @@ from django.contrib import admin, messages
 from django.http import HttpResponseRedirect
 from simple_history.admin import SimpleHistoryAdmin
 
-from lcstore.models import Band, CalibrationOffset, HostFlux, Instrument, Source, Upload
+from lcstore.models import (
+    BAND_FIELDS,
+    INSTRUMENT_FIELDS,
+    Band,
+    CalibrationOffset,
+    HostFlux,
+    Instrument,
+    Source,
+    Upload,
+)
 from lcstore.rederive import RederivationRefused, curated_change_apply
 
 
@@ -72,37 +81,14 @@ class SourceAdmin(CuratedConversionsAdmin):
 
 @admin.register(Instrument)
 class InstrumentAdmin(CuratedConversionsAdmin):
-    list_display = (
-        "slug",
-        "name",
-        "kind",
-        "site_lon",
-        "site_lat",
-        "site_height",
-        "default_time_format",
-        "default_time_scale",
-        "default_time_reference",
-        "met_epoch",
-    )
+    list_display = ("slug", *INSTRUMENT_FIELDS)
     search_fields = ("slug", "name", "notes")
     list_filter = ("kind", "default_time_format", "default_time_scale", "default_time_reference")
 
 
 @admin.register(Band)
 class BandAdmin(CuratedConversionsAdmin):
-    list_display = (
-        "slug",
-        "name",
-        "kind",
-        "wavelength_eff",
-        "mag_system",
-        "zero_point_jy",
-        "energy_min_kev",
-        "energy_max_kev",
-        "pivot_energy_kev",
-        "photon_index",
-        "counts_to_energy_flux",
-    )
+    list_display = ("slug", *BAND_FIELDS)
     search_fields = ("slug", "name")
     list_filter = ("kind", "mag_system")
 

@@ -23,6 +23,9 @@ from lcstore.science.times import TIME_FORMATS, TIME_REFERENCES, TIME_SCALES
 from lcstore.science.units import BandSpec
 
 __all__ = [
+    "BAND_FIELDS",
+    "INSTRUMENT_FIELDS",
+    "SOURCE_FIELDS",
     "Band",
     "BandKind",
     "CalibrationOffset",
@@ -38,6 +41,33 @@ __all__ = [
     "Upload",
     "UploadStatus",
 ]
+
+# The curated fields of each record as DESIGN.md §4 lists them (after the slug);
+# the API, the admin and the demo loader all use these lists.
+SOURCE_FIELDS = ("name", "aliases", "ra", "dec", "redshift", "ebv", "notes")
+INSTRUMENT_FIELDS = (
+    "name",
+    "kind",
+    "site_lon",
+    "site_lat",
+    "site_height",
+    "default_time_format",
+    "default_time_scale",
+    "default_time_reference",
+    "met_epoch",
+)
+BAND_FIELDS = (
+    "name",
+    "kind",
+    "wavelength_eff",
+    "mag_system",
+    "zero_point_jy",
+    "energy_min_kev",
+    "energy_max_kev",
+    "pivot_energy_kev",
+    "photon_index",
+    "counts_to_energy_flux",
+)
 
 TimeFormat = models.TextChoices("TimeFormat", [(f.upper(), f) for f in TIME_FORMATS])
 TimeScale = models.TextChoices("TimeScale", [(s.upper(), s) for s in TIME_SCALES])

@@ -22,10 +22,18 @@ from django.utils import timezone
 from lcstore import roles
 from lcstore.models import FluxPoint, Source, Upload
 
-__all__ = ["PointArrays", "points_for_source", "uploads_visible", "upload_visible_to"]
+__all__ = [
+    "PointArrays",
+    "embargo_filter",
+    "points_for_source",
+    "uploads_visible",
+    "upload_visible_to",
+]
 
 
-def _embargo_filter(user: Any, now: dt.datetime) -> Q:
+def embargo_filter(user: Any, now: dt.datetime | None = None) -> Q:
+    """Uploads this user may see under the embargo rule (all of them for curators)."""
+    now = now or timezone.now()
     open_q = Q(embargo_until__isnull=True) | Q(embargo_until__lte=now)
     if roles.is_curator(user):
         return Q()
@@ -39,7 +47,7 @@ def uploads_visible(
 ) -> QuerySet[Upload]:
     """Uploads whose points this user may see, in the store as it was at ``as_of``."""
     now = timezone.now()
-    qs = Upload.objects.filter(_embargo_filter(user, now))
+    qs = Upload.objects.filter(embargo_filter(user, now))
     if source is not None:
         qs = qs.filter(sources=source)
     if as_of is None:

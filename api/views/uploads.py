@@ -6,9 +6,7 @@ import json
 from typing import Any
 
 from django.conf import settings
-from django.db.models import Q
 from django.http import HttpResponse
-from django.utils import timezone
 from drf_spectacular.utils import extend_schema
 from rest_framework import mixins, serializers, status, viewsets
 from rest_framework.decorators import action
@@ -20,9 +18,9 @@ from api.filters import UploadFilter
 from api.permissions import ContributorsUpload
 from api.serializers import UploadSerializer
 from api.throttles import ReadThrottle, WriteScopedThrottle
-from lcstore import roles
 from lcstore.ingest.readers import FORMATS
 from lcstore.models import Upload
+from lcstore.queries import embargo_filter
 from lcstore.science.times import TIME_FORMATS, TIME_REFERENCES, TIME_SCALES
 from lcstore.services import (
     UploadConflict,
@@ -97,13 +95,7 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
             .prefetch_related("sources", "superseded_by")
             .defer("file__content")
         )
-        user = self.request.user
-        if not roles.is_curator(user):
-            open_q = Q(embargo_until__isnull=True) | Q(embargo_until__lte=timezone.now())
-            if user.is_authenticated:
-                open_q |= Q(uploader_id=user.pk)
-            qs = qs.filter(open_q)
-        return qs
+        return qs.filter(embargo_filter(self.request.user))
 
     @extend_schema(request={"multipart/form-data": UploadInput}, responses={201: UploadSerializer})
     def create(self, request: Request, *args: Any, **kwargs: Any) -> Response:

@@ -11,33 +11,17 @@ from django.core.management.base import BaseCommand, CommandError
 from django.db import transaction
 from rest_framework.authtoken.models import Token
 
-from lcstore.models import Band, CalibrationOffset, Instrument, Source, Upload
+from lcstore.models import (
+    BAND_FIELDS,
+    INSTRUMENT_FIELDS,
+    SOURCE_FIELDS,
+    Band,
+    CalibrationOffset,
+    Instrument,
+    Source,
+    Upload,
+)
 from lcstore.services import UploadConflict, UploadInvalid, UploadParams, upload_create
-
-SOURCE_FIELDS = ("name", "aliases", "ra", "dec", "redshift", "ebv", "notes")
-INSTRUMENT_FIELDS = (
-    "name",
-    "kind",
-    "site_lon",
-    "site_lat",
-    "site_height",
-    "default_time_format",
-    "default_time_scale",
-    "default_time_reference",
-    "met_epoch",
-)
-BAND_FIELDS = (
-    "name",
-    "kind",
-    "wavelength_eff",
-    "mag_system",
-    "zero_point_jy",
-    "energy_min_kev",
-    "energy_max_kev",
-    "pivot_energy_kev",
-    "photon_index",
-    "counts_to_energy_flux",
-)
 
 
 class Command(BaseCommand):
