@@ -358,7 +358,7 @@ function init(args)
 end
 function request()
   n = n + 1
-  return wrk.format("GET", PATH .. "&start=-" .. (tid * 1000000 + n))
+  return wrk.format("GET", PATH .. "&start=-" .. (OFFSET + tid * 1000000 + n))
 end
 """
 
@@ -379,8 +379,13 @@ def wrk_load(
     connections: int,
     threads: int,
     bust_cache: bool,
+    bust_offset: int = 0,
 ) -> LoadResult:
-    """Run wrk for a fixed duration on one path (``bust_cache``: a new ``start=`` per request)."""
+    """Run wrk for a fixed duration on one path (``bust_cache``: a new ``start=`` per request).
+
+    The ``start=`` values are ``-(bust_offset + thread * 1e6 + i)``: give each run its own
+    ``bust_offset`` so no run meets answers another run has left in a shared cache.
+    """
     wrk = shutil.which("wrk")
     if wrk is None:
         raise FileNotFoundError("wrk")
@@ -399,7 +404,8 @@ def wrk_load(
     for k, v in headers.items():
         cmd += ["-H", f"{k}: {v}"]
     with tempfile.NamedTemporaryFile("w", suffix=".lua", delete=False) as lua:
-        lua.write((f"PATH = {path!r}\n" + _WRK_BUST) if bust_cache else "")
+        head = f"PATH = {path!r}\nOFFSET = {int(bust_offset)}\n"
+        lua.write((head + _WRK_BUST) if bust_cache else "")
     try:
         if bust_cache:
             cmd += ["-s", lua.name]
@@ -441,6 +447,7 @@ def python_load(
     seconds: int,
     connections: int,
     bust_cache: bool,
+    bust_offset: int = 0,
 ) -> LoadResult:
     """The same bounded load from threads with one httpx client each (when wrk is missing)."""
     deadline = time.monotonic() + seconds
@@ -453,7 +460,7 @@ def python_load(
         with httpx.Client(base_url=url, headers=headers, timeout=60.0, trust_env=False) as c:
             while time.monotonic() < deadline:
                 i += 1
-                p = f"{path}&start=-{k * 1_000_000 + i}" if bust_cache else path
+                p = f"{path}&start=-{bust_offset + k * 1_000_000 + i}" if bust_cache else path
                 t0 = time.perf_counter()
                 try:
                     r = c.get(p)

@@ -63,4 +63,19 @@ if [ ! -x /usr/bin/chromium ] || [ ! -x /usr/bin/chromedriver ]; then
   fi
 fi
 
+# The compose-file check validates docker-compose.yml with a Compose client
+# (Debian's docker-compose; no Docker engine is needed). Installed once, when
+# missing, as root with apt-get; any failure only warns and the check skips.
+if ! docker compose version >/dev/null 2>&1 && ! command -v docker-compose >/dev/null 2>&1; then
+  if [ "$(id -u)" -eq 0 ] && command -v apt-get >/dev/null 2>&1; then
+    echo "Installing docker-compose for the compose-file check"
+    if ! { DEBIAN_FRONTEND=noninteractive apt-get update -qq &&
+           DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends docker-compose; } >/dev/null; then
+      echo "warning: docker-compose could not be installed; the compose validation test will be skipped"
+    fi
+  else
+    echo "warning: no Docker Compose client (Debian package docker-compose, as root); the compose validation test will be skipped"
+  fi
+fi
+
 exec .venv/bin/pytest "$@"

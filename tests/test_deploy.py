@@ -10,6 +10,8 @@ from __future__ import annotations
 import os
 import runpy
 import secrets
+import shutil
+import subprocess
 from io import StringIO
 from pathlib import Path
 
@@ -108,3 +110,165 @@ def test_without_the_environment_plain_http_still_works(monkeypatch):
     assert s["SECURE_SSL_REDIRECT"] is False and s["SECURE_HSTS_SECONDS"] == 0
     assert s["SESSION_COOKIE_SECURE"] is False and s["CSRF_COOKIE_SECURE"] is False
     assert s["SECRET_KEY"] == s["LCSTORE_DEMO_SECRET_KEY"]
+
+
+# ------------------------------------------------------------------ docker-compose.yml
+# What the compose file must hold (issue 6): PostgreSQL, Redis, migrations once, the API
+# under gunicorn and the task worker, health checks, and an environment lcstore reads.
+# The file is checked as YAML here; a Docker Compose client, where one is installed,
+# validates it against the Compose specification (`docker compose config`, or Debian's
+# v1 `docker-compose config`; no engine is needed for that).
+
+COMPOSE_FILE = ROOT / "docker-compose.yml"
+LONG_RUNNING = ("db", "redis", "api", "worker")
+
+
+def _compose_client() -> list[str] | None:
+    """The argv prefix of an installed Compose client that answers `version`, or None."""
+    for argv in (["docker", "compose"], ["docker-compose"]):
+        if shutil.which(argv[0]) is None:
+            continue
+        try:
+            done = subprocess.run([*argv, "version"], capture_output=True, timeout=60)
+        except (OSError, subprocess.TimeoutExpired):
+            continue
+        if done.returncode == 0:
+            return argv
+    return None
+
+
+def _compose_config(env_extra: dict[str, str]) -> tuple[list[str], subprocess.CompletedProcess]:
+    client = _compose_client()
+    if client is None:
+        pytest.skip(
+            "no Docker Compose client: neither `docker compose version` nor "
+            "`docker-compose version` works (apt-get install docker-compose)"
+        )
+    env = {k: v for k, v in os.environ.items() if k != "SECRET_KEY"} | env_extra
+    done = subprocess.run(
+        [*client, "-f", str(COMPOSE_FILE), "config"],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        env=env,
+        cwd=ROOT,
+    )
+    return client, done
+
+
+def _command_text(service: dict) -> str:
+    cmd = service.get("command", "")
+    return " ".join(cmd) if isinstance(cmd, list) else str(cmd)
+
+
+def _check_compose(doc: dict) -> None:
+    """The services, their commands, health checks and start order."""
+    services = doc["services"]
+    assert set(services) == {"db", "redis", "migrate", "api", "worker"}
+    assert services["db"]["image"].startswith("postgres:")
+    assert services["redis"]["image"].startswith("redis:")
+    assert "gunicorn" in _command_text(services["api"])
+    assert "lcstore.wsgi" in _command_text(services["api"])
+    assert _command_text(services["worker"]).split()[-2:] == ["manage.py", "db_worker"]
+    assert "migrate" in _command_text(services["migrate"])
+    for name in LONG_RUNNING:
+        test = services[name].get("healthcheck", {}).get("test")
+        assert test and test[0] in ("CMD", "CMD-SHELL") and len(test) > 1, name
+    assert "service_healthy" == services["migrate"]["depends_on"]["db"]["condition"]
+    for name in ("api", "worker"):
+        deps = services[name]["depends_on"]
+        assert deps["db"]["condition"] == "service_healthy", name
+        assert deps["redis"]["condition"] == "service_healthy", name
+        assert deps["migrate"]["condition"] == "service_completed_successfully", name
+    built = [n for n, s in services.items() if "build" in s]
+    assert sorted(built) == ["api", "migrate", "worker"]
+
+
+def _compose_yaml() -> dict:
+    import yaml
+
+    return yaml.safe_load(COMPOSE_FILE.read_text())
+
+
+class _ReadRecorder(dict):
+    """A stand-in for os.environ that remembers every variable name looked up."""
+
+    def __init__(self, env: dict[str, str]):
+        super().__init__(env)
+        self.read: set[str] = set()
+
+    def __getitem__(self, key: str) -> str:
+        self.read.add(key)
+        return super().__getitem__(key)
+
+    def get(self, key: str, default: object = None) -> object:  # type: ignore[override]
+        self.read.add(key)
+        return super().get(key, default)
+
+    def __contains__(self, key: object) -> bool:
+        self.read.add(str(key))
+        return super().__contains__(key)
+
+
+def _check_app_environment(doc: dict) -> None:
+    """Every variable set on a lcstore container is read by lcstore/settings.py, and means
+    what the other services provide (PostgreSQL's user/password/database, Redis's host)."""
+    services = doc["services"]
+    db_env = services["db"]["environment"]
+    for name in ("api", "worker", "migrate"):
+        env = {k: str(v) for k, v in services[name]["environment"].items()}
+        rec = _ReadRecorder(env)
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(os, "environ", rec)
+            s = runpy.run_path(str(ROOT / "lcstore" / "settings.py"))
+        assert sorted(set(env) - rec.read) == [], f"{name}: set but never read by settings"
+        db = s["DATABASES"]["default"]
+        assert db["ENGINE"] == "django.db.backends.postgresql"
+        assert (db["HOST"], db["PORT"]) == ("db", 5432)
+        assert db["USER"] == db_env["POSTGRES_USER"]
+        assert db["PASSWORD"] == db_env["POSTGRES_PASSWORD"]
+        assert db["NAME"] == db_env["POSTGRES_DB"]
+        cache = s["CACHES"]["default"]
+        assert cache["BACKEND"] == "django.core.cache.backends.redis.RedisCache"
+        assert cache["LOCATION"].startswith("redis://redis:6379/")
+        assert s["TASKS"]["default"]["BACKEND"] == "django_tasks_db.backend.DatabaseBackend"
+        assert s["DEBUG"] is False
+
+
+def test_compose_file_services_and_health_checks():
+    _check_compose(_compose_yaml())
+
+
+def test_compose_environment_is_what_settings_read():
+    _check_app_environment(_compose_yaml())
+
+
+def test_the_env_recorder_sees_an_unread_variable():
+    """Guards the check above: a variable settings.py never reads is reported."""
+    doc = _compose_yaml()
+    doc["services"]["worker"]["environment"] = dict(
+        doc["services"]["worker"]["environment"], LCSTORE_NO_SUCH_SETTING="1"
+    )
+    with pytest.raises(AssertionError, match="LCSTORE_NO_SUCH_SETTING"):
+        _check_app_environment(doc)
+
+
+def test_compose_config_validates():
+    """`docker compose config` (or `docker-compose config`) accepts the file; its resolved
+    form passes the same checks, with SECRET_KEY taken from the caller's environment."""
+    import yaml
+
+    key = secrets.token_urlsafe(50)
+    client, done = _compose_config({"SECRET_KEY": key})
+    assert done.returncode == 0, f"{' '.join(client)} config failed:\n{done.stderr}"
+    doc = yaml.safe_load(done.stdout)
+    _check_compose(doc)
+    for name in ("api", "worker", "migrate"):
+        assert doc["services"][name]["environment"]["SECRET_KEY"] == key
+    _check_app_environment(doc)
+
+
+def test_compose_refuses_to_run_without_a_secret_key():
+    client, done = _compose_config({})
+    assert done.returncode != 0
+    assert "SECRET_KEY" in done.stderr

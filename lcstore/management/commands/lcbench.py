@@ -11,7 +11,10 @@ the same machine (absolute times on shared machines are noise):
   in the table vs with that source alone;
 - lags: DCF and ZDCF timings, and ZDCF vs the pyzdcf oracle (its own venv);
 - growth: ingest and binned pull at 1e4 … 1e7 points;
-- load: gunicorn (workers = cores) under a fixed-duration loopback load.
+- load: gunicorn (workers = cores) under a fixed-duration loopback load, uncached,
+  cached in local memory, and cached in Redis (a second server with REDIS_URL);
+- partition (only with --only): the binned SQL on a hash-partitioned copy (by
+  source, 8 partitions) of the bare table vs the bare table, same rows.
 
 The database ``lcbench_<pid>`` is created through Django's test-database
 machinery on the server of DATABASE_URL and dropped at the end; servers run
@@ -43,6 +46,7 @@ import httpx
 import numpy as np
 import pandas as pd
 import psycopg
+import redis
 from django.conf import settings
 from django.core.management.base import BaseCommand, CommandError, CommandParser
 from django.db import connection
@@ -52,7 +56,10 @@ from lcstore.bench import Row, Timing, best_of, seconds_text
 
 BASE_DIR = Path(__file__).resolve().parents[3]
 DEFAULT_SERVER = "postgres://postgres@127.0.0.1:5432/postgres"
-PHASES = ("ingest", "binned", "raw", "load", "growth", "isolation", "lags")
+PHASES = ("ingest", "binned", "raw", "load", "growth", "isolation", "lags", "partition")
+# The partition comparison is a layout study, not a goal of the service: run when asked.
+DEFAULT_PHASES = tuple(p for p in PHASES if p != "partition")
+DEFAULT_REDIS_URL = "redis://127.0.0.1:6379/13"
 GROWTH_SIZES = (10_000, 100_000, 1_000_000, 10_000_000)
 POINT_COLUMNS = (
     "source_id",
@@ -69,6 +76,8 @@ POINT_COLUMNS = (
     "error_orig",
 )
 BARE_TABLE = "lcbench_bare"
+PART_TABLE = "lcbench_part"
+N_PARTITIONS = 8
 MAIN, LOAD, ISO = "bench-main", "bench-load", "bench-iso"
 N_OTHER_SOURCES = 100
 ISO_SLICES = 10
@@ -115,6 +124,7 @@ class Config:
     frame: str
     profile: bool
     workers: int
+    redis_url: str
 
 
 class Bench:
@@ -142,6 +152,9 @@ class Bench:
         self.cache_present = _curve_cache_present()
         self.facts: list[tuple[str, str]] = []
         self.ingest_bary: Timing | None = None
+        self.extra_server: bench.Server | None = None
+        self.redis: redis.Redis | None = None  # the dedicated db, flushed at the end
+        self.load_runs = 0
 
     # ------------------------------------------------------------------ lifecycle
 
@@ -186,6 +199,10 @@ class Bench:
         if self.server is not None:
             self.server.stop()
             self.server = None
+        if self.extra_server is not None:
+            self.extra_server.stop()
+            self.extra_server = None
+        self._release_redis()
         if self.pg is not None:
             self.pg.close()
             self.pg = None
@@ -278,9 +295,8 @@ class Bench:
             + f". The point table also has {n_fk} foreign keys (not copied by LIKE)."
         )
 
-    def ensure_server(self) -> httpx.Client:
-        if self.client is not None:
-            return self.client
+    def server_env(self) -> dict[str, str]:
+        """The environment of a bench gunicorn: the bench database, throttles off."""
         env = {
             k: v
             for k, v in os.environ.items()
@@ -302,18 +318,32 @@ class Bench:
                 "PYTHONUNBUFFERED": "1",
             }
         )
-        self.say(f"starting gunicorn ({self.cfg.workers} workers) on a loopback port")
-        self.server = bench.Server(base_dir=BASE_DIR, env=env, workers=self.cfg.workers)
-        self.server.start()
-        self.client = httpx.Client(
-            base_url=self.server.url,
+        return env
+
+    def start_server(self, env: dict[str, str]) -> tuple[bench.Server, httpx.Client]:
+        server = bench.Server(base_dir=BASE_DIR, env=env, workers=self.cfg.workers)
+        server.start()
+        client = httpx.Client(
+            base_url=server.url,
             headers={"Authorization": f"Token {self.token}"},
             timeout=httpx.Timeout(3600.0),
             trust_env=False,
         )
-        for _ in range(2 * self.cfg.workers):  # every worker imports its views once
-            self.client.get("/api/v1/sources/?limit=1")
-            self.client.get(f"/api/v1/sources/{MAIN}/lightcurve/?bands=none-such")
+        try:
+            for _ in range(2 * self.cfg.workers):  # every worker imports its views once
+                client.get("/api/v1/sources/?limit=1")
+                client.get(f"/api/v1/sources/{MAIN}/lightcurve/?bands=none-such")
+        except BaseException:
+            client.close()
+            server.stop()
+            raise
+        return server, client
+
+    def ensure_server(self) -> httpx.Client:
+        if self.client is not None:
+            return self.client
+        self.say(f"starting gunicorn ({self.cfg.workers} workers) on a loopback port")
+        self.server, self.client = self.start_server(self.server_env())
         return self.client
 
     # ------------------------------------------------------------------ database helpers
@@ -751,59 +781,140 @@ class Bench:
         self.ensure(LOAD, n)
         self.vacuum()
         assert self.server is not None
-        headers = {"Authorization": f"Token {self.token}"}
+        backend = "redis" if os.environ.get("REDIS_URL") else "locmem"
+        runs = [("uncached", True)]
+        if self.cache_present:
+            runs.append((f"cached, {backend}", False))
+        for label, bust in runs:
+            self.load_row(self.server.url, label, bust)
+        if not self.cache_present:
+            self.rows.append(Row("load (cached)", notes="no cache yet"))
+        elif backend == "locmem":
+            self.load_redis()
+        self.notes.append(
+            f"Load: one source of {n:,} points ({self.lightcurve_path(LOAD, binned=True, bust=False)}"
+            f"); the load tool runs on the same {os.cpu_count()} cores as the server and "
+            "PostgreSQL; each run follows an untimed 3 s warm-up."
+            + (
+                " Uncached requests carry a distinct start= each (no value repeats across runs)."
+                if self.cache_present
+                else ""
+            )
+        )
+
+    def load_row(self, url: str, label: str, bust: bool, *, info: bool = False) -> None:
+        """A warm-up and a timed fixed-duration load on the binned LOAD path; one report row."""
+        n = self.cfg.load_n
         conns = self.cfg.load_connections
         threads = max(1, min(conns, os.cpu_count() or 1))
-        base_path = self.lightcurve_path(LOAD, binned=True, bust=False)
+        path = self.lightcurve_path(LOAD, binned=True, bust=False)
+        headers = {"Authorization": f"Token {self.token}"}
 
-        def run(seconds: int, bust: bool) -> bench.LoadResult:
-            assert self.server is not None
+        def run(seconds: int) -> bench.LoadResult:
+            self.load_runs += 1
+            offset = self.load_runs * 100_000_000  # start= values never meet another run's
             try:
                 return bench.wrk_load(
-                    self.server.url,
-                    base_path,
+                    url,
+                    path,
                     headers=headers,
                     seconds=seconds,
                     connections=conns,
                     threads=threads,
                     bust_cache=bust,
+                    bust_offset=offset,
                 )
             except FileNotFoundError:
                 return bench.python_load(
-                    self.server.url,
-                    base_path,
+                    url,
+                    path,
                     headers=headers,
                     seconds=seconds,
                     connections=conns,
                     bust_cache=bust,
+                    bust_offset=offset,
                 )
 
-        kinds = [("uncached", self.cache_present)]
-        if self.cache_present:
-            kinds.append(("cached", False))
-        for label, bust in kinds:
-            self.say(f"load {label}: warm-up (3 s, untimed)")
-            run(3, bust)
-            self.say(f"load {label}: {self.cfg.load_seconds} s, {conns} connections")
-            res = run(self.cfg.load_seconds, bust)
+        with httpx.Client(base_url=url, headers=headers, timeout=600.0, trust_env=False) as c:
+            probe = c.get(path + ("&start=-1" if bust else ""))
+        if probe.status_code != 200:  # a load of error answers would measure nothing
+            raise CommandError(
+                f"load {label}: GET {path} answered {probe.status_code}: {probe.text[:1000]}"
+            )
+        self.say(f"load {label}: warm-up (3 s, untimed)")
+        run(3)
+        self.say(f"load {label}: {self.cfg.load_seconds} s, {conns} connections")
+        res = run(self.cfg.load_seconds)
+        name = f"load ({label}): binned pulls, gunicorn x{self.cfg.workers}"
+        self.rows.append(
+            Row(
+                ("  (info) " if info else "") + name,
+                f"{n:,}",
+                f"{res.rps:.1f} req/s",
+                "",
+                notes=f"p50 {seconds_text(res.p50_s)}, p99 {seconds_text(res.p99_s)}; "
+                f"{res.requests} requests in {res.seconds:.0f} s, {conns} connections, "
+                f"{res.errors} errors ({res.tool})",
+            )
+        )
+
+    def _release_redis(self) -> None:
+        if self.redis is None:
+            return
+        try:
+            self.redis.flushdb()
+        except redis.RedisError as exc:
+            self.say(f"WARNING: could not flush {self.cfg.redis_url}: {exc}")
+        self.redis.close()
+        self.redis = None
+
+    def load_redis(self) -> None:
+        """The cached load again on a second gunicorn whose cache is Redis (REDIS_URL)."""
+        url = self.cfg.redis_url
+        raw = redis.Redis.from_url(url, socket_connect_timeout=2, socket_timeout=10)
+        try:
+            raw.ping()
+            keys_before = raw.dbsize()
+            version = raw.info("server").get("redis_version", "?")
+        except redis.RedisError as exc:
+            raw.close()
+            self.rows.append(Row("load (cached, redis)", notes=f"SKIPPED: {url}: {exc}"))
+            return
+        if keys_before:
+            raw.close()
             self.rows.append(
                 Row(
-                    f"load ({label}): binned pulls, gunicorn x{self.cfg.workers}",
-                    f"{n:,}",
-                    f"{res.rps:.1f} req/s",
-                    "",
-                    notes=f"p50 {seconds_text(res.p50_s)}, p99 {seconds_text(res.p99_s)}; "
-                    f"{res.requests} requests in {res.seconds:.0f} s, {conns} connections, "
-                    f"{res.errors} errors ({res.tool})",
+                    "load (cached, redis)",
+                    notes=f"SKIPPED: {url} already holds {keys_before} keys (not ours: left "
+                    "alone; give an empty db with --redis-url)",
                 )
             )
-        if not self.cache_present:
-            self.rows.append(Row("load (cached)", notes="no cache yet"))
+            return
+        self.redis = raw  # ours from now on: flushed (that db only) at the end
+        self.say(f"starting a second gunicorn with REDIS_URL={url}")
+        env = self.server_env() | {"REDIS_URL": url}
+        self.extra_server, client = self.start_server(env)
+        try:
+            self.load_row(self.extra_server.url, "uncached, redis", True, info=True)
+            keys_after_misses = raw.dbsize()
+            self.load_row(self.extra_server.url, "cached, redis", False)
+            r = client.get(self.lightcurve_path(LOAD, binned=True, bust=False))
+            hit = r.headers.get("X-Lcstore-Cache", "no X-Lcstore-Cache header")
+            answer_keys = sum(1 for _ in raw.scan_iter(match="*lcstore:answer:*", count=1000))
+            mem = raw.info("memory").get("used_memory_human", "?")
+        finally:
+            client.close()
+            self.extra_server.stop()
+            self.extra_server = None
+            self._release_redis()
         self.notes.append(
-            f"Load: one source of {n:,} points ({self.lightcurve_path(LOAD, binned=True, bust=False)}"
-            f"); the load tool runs on the same {os.cpu_count()} cores as the server and "
-            "PostgreSQL."
-            + (" Uncached requests carry a distinct start= each." if self.cache_present else "")
+            f"Redis cache: Redis {version} at {url} (a db of its own, empty at the start and "
+            "flushed at the end, no other db touched); a second gunicorn on the same database "
+            f"with REDIS_URL set (settings: django.core.cache.backends.redis.RedisCache). After "
+            f"the uncached run the db held {keys_after_misses:,} keys (one per distinct URL); "
+            f"the cached URL then answered X-Lcstore-Cache: {hit}; {answer_keys:,} answer keys, "
+            f"{mem} used. The local-memory cache is one per gunicorn worker; Redis is one for "
+            "all workers and hosts, at the cost of a round trip and unpickling per hit."
         )
 
     def phase_growth(self) -> None:
@@ -940,6 +1051,205 @@ class Bench:
                 "100x of 1,000,000 is 1e8 rows, about 15 GB; use --isolation-points 1e6.)"
             )
         )
+
+    # ------------------------------------------------------------------ partitioning
+
+    def _partitioned_table(self) -> list[str]:
+        """PART_TABLE: the bare table's columns, hash-partitioned by source into N_PARTITIONS,
+        with the point table's index definitions replayed on it; what differs, as notes."""
+        from lcstore.models import FluxPoint
+
+        assert self.pg is not None
+        point = FluxPoint._meta.db_table
+        self.pg.execute(f"DROP TABLE IF EXISTS {PART_TABLE}")
+        self.pg.execute(
+            f"CREATE TABLE {PART_TABLE} (LIKE {point} INCLUDING DEFAULTS INCLUDING IDENTITY "
+            "INCLUDING GENERATED INCLUDING STORAGE) PARTITION BY HASH (source_id)"
+        )
+        for r in range(N_PARTITIONS):
+            self.pg.execute(
+                f"CREATE TABLE {PART_TABLE}_{r} PARTITION OF {PART_TABLE} "
+                f"FOR VALUES WITH (MODULUS {N_PARTITIONS}, REMAINDER {r})"
+            )
+        differs = []
+        rows = self.pg.execute(
+            "SELECT i.indexname, i.indexdef, x.indisprimary, x.indisunique FROM pg_indexes i "
+            "JOIN pg_class c ON c.relname = i.indexname JOIN pg_index x ON x.indexrelid = c.oid "
+            "WHERE i.tablename = %s ORDER BY i.indexname",
+            [point],
+        ).fetchall()
+        for name, indexdef, primary, unique in rows:
+            cols = re.search(r"\(([^)]*)\)", indexdef)
+            if primary:
+                # A unique index of a partitioned table must hold the partition key.
+                key = cols.group(1) if cols else "id"
+                self.pg.execute(f"ALTER TABLE {PART_TABLE} ADD PRIMARY KEY ({key}, source_id)")
+                differs.append(f"primary key ({key}, source_id) instead of ({key})")
+                continue
+            if unique and cols and "source_id" not in cols.group(1):
+                differs.append(f"unique index {name} left out (no source_id in it)")
+                continue
+            self.pg.execute(
+                re.sub(
+                    r"INDEX \S+ ON \S+",
+                    f"INDEX {name}_part ON {PART_TABLE}",
+                    indexdef,
+                    count=1,
+                )
+            )
+        return differs
+
+    def _explain(self, table: str, source_id: int) -> tuple[str, int]:
+        """The scans of the binned SQL (node, relation, heap fetches, buffers); all buffers."""
+        assert self.pg is not None
+        sql = BINNED_SQL.format(table=table)
+        plan = self.pg.execute(
+            f"EXPLAIN (ANALYZE, BUFFERS, FORMAT JSON) {sql}", [source_id, self.band.pk]
+        ).fetchone()[0][0]["Plan"]
+        scans: list[dict[str, Any]] = []
+
+        def walk(node: dict[str, Any]) -> None:
+            if "Scan" in node["Node Type"] and "Relation Name" in node:
+                scans.append(node)
+            for child in node.get("Plans", []):
+                walk(child)
+
+        walk(plan)
+        parts = []
+        for node in scans:
+            fetches = node.get("Heap Fetches")
+            parts.append(
+                f"{node['Node Type']} on {node['Relation Name']}"
+                + (f" ({node['Index Name']})" if node.get("Index Name") else "")
+                + (f", heap fetches {fetches}" if fetches is not None else "")
+                + f", buffers hit {node.get('Shared Hit Blocks', 0)}"
+                f" read {node.get('Shared Read Blocks', 0)}"
+            )
+        blocks = sum(n.get("Shared Hit Blocks", 0) + n.get("Shared Read Blocks", 0) for n in scans)
+        return "; ".join(parts) or plan["Node Type"], blocks
+
+    def phase_partition(self) -> None:
+        """The binned SQL on the bare table vs a hash-partitioned copy, on the same rows.
+
+        The rows are the isolation phase's: one source of ``iso_n`` points (the same
+        generator and seed) in ISO_SLICES time slices, each slice followed by the same
+        slice of N_OTHER_SOURCES other sources (``iso_n`` points each), here written by
+        COPY to both tables, slice by slice, alternately. The real point table is not
+        touched.
+        """
+        assert self.pg is not None
+        n = self.cfg.iso_n
+        n_all = (N_OTHER_SOURCES + 1) * n
+        target = int(self.sources[ISO].pk)
+        self.say(f"partition: hash-partitioned copy ({N_PARTITIONS} partitions by source_id)")
+        differs = self._partitioned_table()
+        self.pg.execute(f"TRUNCATE {BARE_TABLE}")
+        self.say(f"partition: generating {n_all:,} rows (the isolation phase's)")
+        arrays = bench.curve_arrays(n, seed=7)
+        others = [bench.curve_arrays(n, seed=1000 + s) for s in range(N_OTHER_SOURCES)]
+        ids = [target, *self.other_ids]
+        curves = [arrays, *others]
+        edges = 58000.0 + np.linspace(0.0, 2700.0, ISO_SLICES + 1)
+        edges[-1] += 1.0
+        copy_s = {BARE_TABLE: 0.0, PART_TABLE: 0.0}
+        for k in range(ISO_SLICES):
+            cuts = [np.searchsorted(c["time"], edges[k : k + 2]) for c in curves]
+            # the target's slice first (its upload), then the others' (as in isolation)
+            src = np.concatenate([np.full(b - a, ids[i]) for i, (a, b) in enumerate(cuts)])
+            t = np.concatenate([curves[i]["time"][a:b] for i, (a, b) in enumerate(cuts)])
+            v = np.concatenate([curves[i]["value"][a:b] for i, (a, b) in enumerate(cuts)])
+            e = np.concatenate([curves[i]["error"][a:b] for i, (a, b) in enumerate(cuts)])
+            payload = list(
+                self.point_payload(source_id=src, upload_id=k + 1, t=t, value=v, error=e)
+            )
+            order = (BARE_TABLE, PART_TABLE) if k % 2 == 0 else (PART_TABLE, BARE_TABLE)
+            self.say(f"partition: COPY slice {k + 1}/{ISO_SLICES} ({len(t):,} rows) to both")
+            for table in order:
+                copy_s[table] += self.copy_in(table, payload)
+        del others, curves, payload
+        self.say("partition: VACUUM (ANALYZE) of both tables")
+        for table in (BARE_TABLE, PART_TABLE):
+            self.pg.execute(f"VACUUM (ANALYZE) {table}")
+        counts = {
+            t: self.pg.execute(f"SELECT count(*) FROM {t}").fetchone()[0]
+            for t in (BARE_TABLE, PART_TABLE)
+        }
+        sizes = {
+            t: self.pg.execute(
+                "SELECT sum(pg_total_relation_size(r)) FROM ("
+                "SELECT %s::regclass AS r UNION ALL "
+                "SELECT inhrelid::regclass FROM pg_inherits WHERE inhparent = %s::regclass) q",
+                [t, t],
+            ).fetchone()[0]
+            for t in (BARE_TABLE, PART_TABLE)
+        }
+        part_of = self.pg.execute(
+            f"SELECT tableoid::regclass::text, count(*) FROM {PART_TABLE} "
+            f"WHERE source_id = %s GROUP BY 1",
+            [target],
+        ).fetchone()
+        in_partition = self.pg.execute(f"SELECT count(*) FROM {part_of[0]}").fetchone()[0]
+
+        def sql(table: str) -> Callable[[], list[tuple[Any, ...]]]:
+            q = BINNED_SQL.format(table=table)
+            return lambda: self.pg.execute(q, [target, self.band.pk]).fetchall()  # type: ignore[union-attr]
+
+        repeats = max(self.cfg.pull_repeats, 9)  # a short query: more repeats are cheap
+        self.say(f"partition: binned SQL, {repeats} repeats each layout")
+        bare, part = self.alternate(sql(BARE_TABLE), sql(PART_TABLE), repeats)
+        same = sql(BARE_TABLE)() == sql(PART_TABLE)()
+        plan_bare, blocks_bare = self._explain(BARE_TABLE, target)
+        plan_part, blocks_part = self._explain(PART_TABLE, target)
+        ratio = part.best / bare.best
+        # Run-to-run spread of this run (median over best, the larger side), at least 10%.
+        spread = max(0.10, *(float(np.median(t.runs)) / t.best - 1.0 for t in (bare, part)))
+        pages = f"the scans read {blocks_part:,} vs {blocks_bare:,} buffers"
+        if ratio <= 1.0 - spread:
+            verdict = f"partitioning pays here: the pull is {1 / ratio:.2f}x faster ({pages})"
+        elif ratio >= 1.0 + spread:
+            verdict = f"partitioning costs here: the pull is {ratio:.2f}x slower ({pages})"
+        else:
+            verdict = (
+                f"partitioning does not pay here: {ratio:.2f}x is within this run's "
+                f"run-to-run spread of {spread:.0%} and {pages} (an index scan of one source "
+                "reads the same index entries whichever table holds them)"
+            )
+        self.rows.append(
+            Row(
+                f"partition: binned SQL, hash x{N_PARTITIONS} by source vs one table",
+                f"{n:,}",
+                seconds_text(part.best),
+                seconds_text(bare.best),
+                ratio,
+                notes=f"best of {part.n}; {counts[PART_TABLE]:,} rows in each layout; "
+                f"results {'equal' if same else 'DIFFERENT'}",
+            )
+        )
+        self.rows.append(
+            Row(
+                "  (info) COPY of the same rows, partitioned vs one table",
+                f"{n_all:,}",
+                seconds_text(copy_s[PART_TABLE]),
+                seconds_text(copy_s[BARE_TABLE]),
+                copy_s[PART_TABLE] / copy_s[BARE_TABLE],
+                notes=f"{ISO_SLICES} COPYs each, alternately; on disk "
+                f"{sizes[PART_TABLE] / 2**20:,.0f} MB vs {sizes[BARE_TABLE] / 2**20:,.0f} MB",
+            )
+        )
+        same_idx = "; ".join(differs) if differs else "none"
+        self.notes.append(
+            f"Partition: {PART_TABLE} = (LIKE the point table) PARTITION BY HASH (source_id), "
+            f"{N_PARTITIONS} partitions, the point table's index definitions (covering "
+            f"(source, band, t) INCLUDE (...) and (source, upload)) replayed on it; "
+            f"differences from the bare table: {same_idx}. Rows: the isolation phase's "
+            f"({n:,} points of the binned source, {N_OTHER_SOURCES} others of {n:,}, "
+            f"{ISO_SLICES} interleaved time slices), COPY to both; VACUUM ANALYZE of both. "
+            f"The binned source's partition {part_of[0]} holds {in_partition:,} of "
+            f"{counts[PART_TABLE]:,} rows. Plans (EXPLAIN ANALYZE, BUFFERS) - one table: "
+            f"{plan_bare}; partitioned: {plan_part}. Verdict: {verdict}."
+        )
+        self.pg.execute(f"DROP TABLE {PART_TABLE}")
+        self.pg.execute(f"TRUNCATE {BARE_TABLE}")
 
     def phase_lags(self) -> None:
         from lcstore.science import lags
@@ -1164,7 +1474,9 @@ class Command(BaseCommand):
     def add_arguments(self, parser: CommandParser) -> None:
         parser.add_argument("--quick", action="store_true", help="smoke run: 1e5 rows, short load")
         parser.add_argument(
-            "--only", default="", help=f"comma list of phases to run: {','.join(PHASES)}"
+            "--only",
+            default="",
+            help=f"comma list of phases to run: {','.join(PHASES)} (default: all but partition)",
         )
         parser.add_argument(
             "--max-points",
@@ -1190,6 +1502,12 @@ class Command(BaseCommand):
             choices=["topocentric", "barycentric"],
             default="topocentric",
             help="time system of the uploaded CSV (topocentric UTC needs the light-time step)",
+        )
+        parser.add_argument(
+            "--redis-url",
+            default=DEFAULT_REDIS_URL,
+            help="an EMPTY Redis db for the Redis-cached load run; flushed at the end "
+            f"(default {DEFAULT_REDIS_URL})",
         )
         parser.add_argument(
             "--profile",
@@ -1244,7 +1562,7 @@ class Command(BaseCommand):
             raise CommandError(f"lcbench exited with {code}")
 
     def _config(self, opts: dict[str, Any]) -> Config:
-        phases = tuple(p.strip() for p in opts["only"].split(",") if p.strip()) or PHASES
+        phases = tuple(p.strip() for p in opts["only"].split(",") if p.strip()) or DEFAULT_PHASES
         unknown = [p for p in phases if p not in PHASES]
         if unknown:
             raise CommandError(f"unknown phase(s) {', '.join(unknown)}; known: {', '.join(PHASES)}")
@@ -1270,6 +1588,7 @@ class Command(BaseCommand):
             frame=opts["frame"],
             profile=opts["profile"],
             workers=cores,
+            redis_url=opts["redis_url"],
         )
 
     def _report(
