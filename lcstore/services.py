@@ -9,6 +9,7 @@ from typing import Any
 
 import numpy as np
 from django.db import connection, transaction
+from django.db.models import Max
 from django.utils import timezone
 
 from lcstore import roles
@@ -82,11 +83,97 @@ def _problem(message: str, column: str | None = None) -> UploadInvalid:
     return UploadInvalid([FileProblem(row=None, column=column, message=message)])
 
 
-def _catalogue(params: UploadParams) -> tuple[InstrumentRecord, dict, dict]:
-    try:
-        inst = Instrument.objects.get(slug=params.instrument)
-    except Instrument.DoesNotExist:
-        raise _problem(f"unknown instrument {params.instrument!r}", "instrument") from None
+# The curated fields that enter a conversion, recorded in ``parameters["metadata"]``
+# (lcstore/rederive.py lists which uploads each of them enters).
+_SNAPSHOT_FIELDS: dict[str, tuple[Any, tuple[str, ...]]] = {
+    "instrument": (
+        Instrument,
+        (
+            "site_lon",
+            "site_lat",
+            "site_height",
+            "kind",
+            "met_epoch",
+            "default_time_format",
+            "default_time_scale",
+            "default_time_reference",
+        ),
+    ),
+    "sources": (Source, ("ra", "dec")),
+    "bands": (
+        Band,
+        (
+            "kind",
+            "wavelength_eff",
+            "mag_system",
+            "zero_point_jy",
+            "energy_min_kev",
+            "energy_max_kev",
+            "pivot_energy_kev",
+            "photon_index",
+            "counts_to_energy_flux",
+        ),
+    ),
+}
+
+
+def _share_lock(qs: Any) -> None:
+    """``SELECT … FOR SHARE`` on the rows of ``qs`` until the transaction ends.
+
+    A curated change takes its record ``FOR UPDATE`` (``curated_change_apply``), so it
+    waits for the upload holding the share lock, and then finds that upload among the
+    ones to re-derive; concurrent uploads do not wait for each other.
+    """
+    if connection.vendor != "postgresql":
+        return  # the embedded SQLite demo has one writer at a time
+    sql, params = qs.order_by("pk").values("pk").query.sql_with_params()
+    with connection.cursor() as cursor:
+        cursor.execute(f"{sql} FOR SHARE", params)
+
+
+def _latest_history_ids(model: Any, qs: Any) -> dict[int, int]:
+    """Newest django-simple-history id of each record of ``qs``."""
+    rows = (
+        model.history.filter(id__in=qs.values("pk"))
+        .order_by()
+        .values("id")
+        .annotate(newest=Max("history_id"))
+    )
+    return {r["id"]: r["newest"] for r in rows}
+
+
+def _records(model: Any, qs: Any, *, lock: bool) -> tuple[list[Any], dict[int, int]]:
+    """The records of ``qs`` and their newest history ids, read in that order reversed.
+
+    History ids are read first: a change committed in between leaves a newer record
+    with an older history id, which :func:`upload_create` takes for a change.
+    """
+    if lock:
+        _share_lock(qs)
+    history = _latest_history_ids(model, qs)
+    return list(qs), history
+
+
+def _snap_of(objs: list[Any], history: dict[int, int], fields: tuple[str, ...]) -> dict:
+    return {
+        o.pk: (o.slug, {**{f: getattr(o, f) for f in fields}, "history_id": history.get(o.pk)})
+        for o in objs
+    }
+
+
+def _catalogue(
+    params: UploadParams, *, lock: bool = False
+) -> tuple[InstrumentRecord, dict, dict, dict[str, dict]]:
+    """The catalogue entries a conversion may use, and the snapshot of their curated fields.
+
+    The snapshot maps ``instrument``/``sources``/``bands`` to ``{pk: (slug, fields and
+    history_id)}``; ``lock`` share-locks the rows first (inside a transaction).
+    """
+    inst_qs = Instrument.objects.filter(slug=params.instrument)
+    insts, inst_history = _records(Instrument, inst_qs, lock=lock)
+    if not insts:
+        raise _problem(f"unknown instrument {params.instrument!r}", "instrument")
+    inst = insts[0]
     instrument = InstrumentRecord(
         id=inst.pk,
         slug=inst.slug,
@@ -100,52 +187,47 @@ def _catalogue(params: UploadParams) -> tuple[InstrumentRecord, dict, dict]:
     band_qs = Band.objects.all()
     if params.source:
         src_qs = src_qs.filter(slug=params.source)
-        if not src_qs.exists():
-            raise _problem(f"unknown source {params.source!r}", "source")
     if params.band:
         band_qs = band_qs.filter(slug=params.band)
-        if not band_qs.exists():
-            raise _problem(f"unknown band {params.band!r}", "band")
-    sources = {s.slug: SourceRecord(id=s.pk, slug=s.slug, ra=s.ra, dec=s.dec) for s in src_qs}
-    bands = {b.slug: BandRecord(id=b.pk, spec=b.spec()) for b in band_qs}
-    return instrument, sources, bands
-
-
-def _metadata_snapshot(instrument_id: int, source_ids: list[int], band_ids: list[int]) -> dict:
-    """The curated values the conversion used, with their history ids."""
-
-    def snap(model: Any, ids: list[int], fields: tuple[str, ...]) -> dict:
-        out = {}
-        for obj in model.objects.filter(pk__in=ids):
-            rec = {f: getattr(obj, f) for f in fields}
-            latest = obj.history.order_by("-history_id").first()
-            rec["history_id"] = latest.history_id if latest else None
-            out[obj.slug] = rec
-        return out
-
-    return {
-        "instrument": snap(
-            Instrument,
-            [instrument_id],
-            ("site_lon", "site_lat", "site_height", "kind", "met_epoch"),
-        ),
-        "sources": snap(Source, source_ids, ("ra", "dec")),
-        "bands": snap(
-            Band,
-            band_ids,
-            (
-                "kind",
-                "wavelength_eff",
-                "mag_system",
-                "zero_point_jy",
-                "energy_min_kev",
-                "energy_max_kev",
-                "pivot_energy_kev",
-                "photon_index",
-                "counts_to_energy_flux",
-            ),
-        ),
+    srcs, src_history = _records(Source, src_qs, lock=lock)
+    band_objs, band_history = _records(Band, band_qs, lock=lock)
+    if params.source and not srcs:
+        raise _problem(f"unknown source {params.source!r}", "source")
+    if params.band and not band_objs:
+        raise _problem(f"unknown band {params.band!r}", "band")
+    sources = {s.slug: SourceRecord(id=s.pk, slug=s.slug, ra=s.ra, dec=s.dec) for s in srcs}
+    bands = {b.slug: BandRecord(id=b.pk, spec=b.spec()) for b in band_objs}
+    snapshot = {
+        "instrument": _snap_of(insts, inst_history, _SNAPSHOT_FIELDS["instrument"][1]),
+        "sources": _snap_of(srcs, src_history, _SNAPSHOT_FIELDS["sources"][1]),
+        "bands": _snap_of(band_objs, band_history, _SNAPSHOT_FIELDS["bands"][1]),
     }
+    return instrument, sources, bands, snapshot
+
+
+def _used_ids(instrument: InstrumentRecord, prepared: PreparedPoints) -> dict[str, list[int]]:
+    return {
+        "instrument": [instrument.id],
+        "sources": sorted({int(i) for i in np.unique(prepared.source_id)}),
+        "bands": sorted({int(i) for i in np.unique(prepared.band_id)}),
+    }
+
+
+def _snapshot_used(snapshot: dict[str, dict], used: dict[str, list[int]]) -> dict:
+    """The ``parameters["metadata"]`` form: by slug, the records the points used."""
+    return {key: dict(snapshot[key][pk] for pk in used[key] if pk in snapshot[key]) for key in used}
+
+
+def _metadata_snapshot(
+    instrument_id: int, source_ids: list[int], band_ids: list[int], *, lock: bool = False
+) -> dict:
+    """The curated values of these records now, with their history ids (``lock``: share-locked)."""
+    used = {"instrument": [instrument_id], "sources": source_ids, "bands": band_ids}
+    snapshot = {}
+    for key, (model, fields) in _SNAPSHOT_FIELDS.items():
+        objs, history = _records(model, model.objects.filter(pk__in=used[key]), lock=lock)
+        snapshot[key] = _snap_of(objs, history, fields)
+    return _snapshot_used(snapshot, used)
 
 
 def checksum_lock(sha256: str) -> None:
@@ -176,7 +258,16 @@ def upload_prepare(
     *, raw: RawTable, params: UploadParams
 ) -> tuple[InstrumentRecord, PreparedPoints]:
     """Check and convert a read file with the catalogue as it is now (no writes)."""
-    instrument, sources, bands = _catalogue(params)
+    instrument, prepared, _ = _prepare(raw=raw, params=params)
+    return instrument, prepared
+
+
+def _prepare(
+    *, raw: RawTable, params: UploadParams, lock: bool = False
+) -> tuple[InstrumentRecord, PreparedPoints, dict]:
+    """:func:`upload_prepare`, plus the snapshot (``parameters["metadata"]`` form) of the
+    curated records the points were converted with; ``lock`` share-locks them first."""
+    instrument, sources, bands, snapshot = _catalogue(params, lock=lock)
     prepared = prepare_points(
         raw,
         instrument=instrument,
@@ -193,7 +284,7 @@ def upload_prepare(
     )
     if len(prepared) == 0:
         raise _problem("the file has no data rows")
-    return instrument, prepared
+    return instrument, prepared, _snapshot_used(snapshot, _used_ids(instrument, prepared))
 
 
 def upload_store(
@@ -209,12 +300,14 @@ def upload_store(
     supersedes: Upload | None,
     now: dt.datetime | None = None,
     extra_parameters: dict[str, Any] | None = None,
+    metadata: dict[str, Any] | None = None,
 ) -> Upload:
     """Write the file (once per checksum), the upload record and its points; retire ``supersedes``.
 
     Runs inside the caller's transaction; the caller has checked the rights and the
     checksum rule. ``sha256`` is the checksum of ``data``; ``extra_parameters`` are
-    added to the upload's recorded parameters.
+    added to the upload's recorded parameters. ``metadata`` is the snapshot of the
+    curated records ``prepared`` was converted with (default: read them now).
     """
     source_ids = sorted({int(i) for i in np.unique(prepared.source_id)})
     band_ids = sorted({int(i) for i in np.unique(prepared.band_id)})
@@ -249,7 +342,9 @@ def upload_store(
                 "stored_as": "MJD (TDB) at the solar-system barycentre (BJD_TDB - 2400000.5)",
             },
             "value_unit": prepared.value_unit,
-            "metadata": _metadata_snapshot(instrument.id, source_ids, band_ids),
+            "metadata": metadata
+            if metadata is not None
+            else _metadata_snapshot(instrument.id, source_ids, band_ids),
             "read": {
                 k: v for k, v in raw.meta.items() if k in ("delimiter", "header", "encoding", "hdu")
             },
@@ -286,6 +381,12 @@ def upload_create(
 ) -> Upload:
     """Read, check, convert and store one file, all or nothing.
 
+    The conversion runs outside the transaction, with the catalogue as read then. In
+    the transaction the curated records it used are share-locked (a curated change
+    waits, then re-derives this upload) and compared with what was read, history ids
+    included; if a change was committed in between, the file is converted again with
+    the locked records. So the points always match ``parameters["metadata"]``.
+
     Raises :class:`UploadInvalid` (every problem found, nothing stored) or
     :class:`UploadConflict` (same bytes already accepted for the same source).
     """
@@ -297,10 +398,20 @@ def upload_create(
         max_rows=max_rows,
         max_columns=max_columns,
     )
-    instrument, prepared = upload_prepare(raw=raw, params=params)
-    source_ids = sorted({int(i) for i in np.unique(prepared.source_id)})
+    instrument, prepared, used = _prepare(raw=raw, params=params)
 
     with transaction.atomic():
+        # Curated rows first, then the checksum: a curated change re-deriving an upload of
+        # the same bytes holds its row and then asks for the checksum lock.
+        ids = _used_ids(instrument, prepared)
+        now_in_store = _metadata_snapshot(
+            ids["instrument"][0], ids["sources"], ids["bands"], lock=True
+        )
+        if now_in_store != used:
+            # A curated change was committed after the catalogue was read: convert again,
+            # with the catalogue share-locked until this transaction ends.
+            instrument, prepared, used = _prepare(raw=raw, params=params, lock=True)
+        source_ids = _used_ids(instrument, prepared)["sources"]
         checksum_lock(sha256)
         existing = (
             Upload.objects.filter(
@@ -337,6 +448,7 @@ def upload_create(
             prepared=prepared,
             params=params,
             supersedes=old,
+            metadata=used,
         )
 
 
