@@ -11,6 +11,7 @@ from typing import Any
 from django.core.exceptions import ValidationError as DjangoValidationError
 from rest_framework import serializers
 
+from lcstore.ingest.columns import ColumnsMappingError, columns_mapping_parse
 from lcstore.models import (
     BAND_FIELDS,
     INSTRUMENT_FIELDS,
@@ -26,6 +27,7 @@ from lcstore.models import (
 __all__ = [
     "BandSerializer",
     "CalibrationOffsetSerializer",
+    "ColumnsMappingField",
     "HostFluxSerializer",
     "InstrumentSerializer",
     "SourceSerializer",
@@ -47,6 +49,29 @@ class FullCleanMixin:
         except DjangoValidationError as exc:
             raise serializers.ValidationError(exc.message_dict) from None
         return attrs
+
+
+class ColumnsMappingField(serializers.CharField):
+    """An upload's ``columns``: JSON text of role -> column name, one column per role.
+
+    Parsed by :func:`lcstore.ingest.columns.columns_mapping_parse`, which refuses a role
+    given twice (plain ``json.loads`` keeps the last); the value is the mapping, or None
+    when blank. Which roles exist and which columns the file has are checked with the
+    file (``resolve_columns``).
+    """
+
+    def __init__(self, **kwargs: Any):
+        kwargs.setdefault("help_text", "JSON object: role -> column name")
+        super().__init__(**kwargs)
+
+    def run_validation(self, data: Any = serializers.empty) -> dict[str, str] | None:
+        text = super().run_validation(data)
+        if text is None or text == "":
+            return None
+        try:
+            return columns_mapping_parse(text)
+        except ColumnsMappingError as exc:
+            raise serializers.ValidationError(str(exc)) from None
 
 
 class SourceSerializer(FullCleanMixin, serializers.ModelSerializer):

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from typing import Any
 
 from django.conf import settings
@@ -16,7 +15,7 @@ from rest_framework.response import Response
 
 from api.filters import UploadFilter
 from api.permissions import ContributorsUpload
-from api.serializers import UploadSerializer
+from api.serializers import ColumnsMappingField, UploadSerializer
 from api.throttles import ReadThrottle, WriteScopedThrottle
 from lcstore.ingest.readers import FORMATS
 from lcstore.models import Upload
@@ -39,9 +38,7 @@ class UploadInput(serializers.Serializer):
     band = serializers.SlugField(required=False, allow_blank=True)
     instrument = serializers.SlugField()
     format = serializers.ChoiceField(choices=FORMATS, required=False)
-    columns = serializers.CharField(
-        required=False, allow_blank=True, help_text="JSON object: role -> column name"
-    )
+    columns = ColumnsMappingField(required=False, allow_blank=True)
     value_unit = serializers.CharField(required=False, allow_blank=True, max_length=80)
     time_format = serializers.ChoiceField(choices=TIME_FORMATS, required=False)
     time_scale = serializers.ChoiceField(choices=TIME_SCALES, required=False)
@@ -51,23 +48,6 @@ class UploadInput(serializers.Serializer):
     reference = serializers.CharField(required=False, allow_blank=True, max_length=10000)
     embargo_until = serializers.DateTimeField(required=False)
     supersedes = serializers.IntegerField(required=False, min_value=1)
-
-    def validate_columns(self, value: str) -> dict[str, str] | None:
-        if not value:
-            return None
-        try:
-            mapping = json.loads(value)
-        except json.JSONDecodeError as exc:
-            raise serializers.ValidationError(f"columns is not valid JSON: {exc.msg}") from None
-        except RecursionError:
-            raise serializers.ValidationError(
-                "columns is not valid JSON: nested too deeply"
-            ) from None
-        if not isinstance(mapping, dict) or not all(
-            isinstance(k, str) and isinstance(v, str) for k, v in mapping.items()
-        ):
-            raise serializers.ValidationError("columns must be a JSON object of role: column name")
-        return mapping
 
     def validate_met_epoch(self, value: float) -> float:
         if value != value or value in (float("inf"), float("-inf")):

@@ -7,6 +7,7 @@ the row, the column and what is wrong.
 
 from __future__ import annotations
 
+import json
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -19,7 +20,9 @@ from lcstore.ingest.readers import FileProblem
 __all__ = [
     "ROLES",
     "ProblemList",
+    "ColumnsMappingError",
     "boolean_column",
+    "columns_mapping_parse",
     "numeric_column",
     "resolve_columns",
     "text_column",
@@ -59,6 +62,44 @@ class ProblemList:
         return self.total > 0
 
 
+class ColumnsMappingError(ValueError):
+    """The ``columns`` text of an upload is not a JSON object of one column name per role."""
+
+
+def _pairs_once(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    """``object_pairs_hook`` that refuses a name given twice (JSON keeps only the last)."""
+    out: dict[str, Any] = {}
+    for key, value in pairs:
+        if key in out:
+            raise ColumnsMappingError(
+                f"role {key!r} is given two columns ({out[key]!r} and {value!r}); "
+                "name one column per role"
+            )
+        out[key] = value
+    return out
+
+
+def columns_mapping_parse(text: str) -> dict[str, str] | None:
+    """The role -> column mapping of an upload's ``columns`` JSON text (None when blank).
+
+    Duplicate names are refused: RFC 8259 §4 leaves their meaning undefined and
+    ``json.loads`` would silently keep the last one.
+    """
+    if not text or not text.strip():
+        return None
+    try:
+        mapping = json.loads(text, object_pairs_hook=_pairs_once)
+    except json.JSONDecodeError as exc:
+        raise ColumnsMappingError(f"columns is not valid JSON: {exc.msg}") from None
+    except RecursionError:
+        raise ColumnsMappingError("columns is not valid JSON: nested too deeply") from None
+    if not isinstance(mapping, dict) or not all(
+        isinstance(k, str) and isinstance(v, str) for k, v in mapping.items()
+    ):
+        raise ColumnsMappingError("columns must be a JSON object of role: column name")
+    return mapping
+
+
 def resolve_columns(
     names: list[str],
     mapping: Mapping[str, Any] | None,
@@ -69,7 +110,8 @@ def resolve_columns(
     """Map roles to column names: the explicit mapping first, else a column named as the role.
 
     Matching of default names ignores case. Unknown roles and unknown columns in the
-    mapping, and missing required roles, are reported.
+    mapping, missing required roles, and a column that would fill two roles (named
+    twice, or named for one role and taken by its name for another) are reported.
     """
     lower = {n.lower(): n for n in names}
     result: dict[str, str] = {}
@@ -95,6 +137,20 @@ def resolve_columns(
     for role in ROLES:
         if role not in result and role not in mapping and role in lower:
             result[role] = lower[role]
+    roles_of: dict[str, list[str]] = {}
+    for role, col in result.items():
+        roles_of.setdefault(col, []).append(role)
+    for col, roles in roles_of.items():
+        if len(roles) > 1:
+            named = sorted(roles)
+            count = {2: "two", 3: "three"}.get(len(named), str(len(named)))
+            problems.add(
+                None,
+                col,
+                f"column {col!r} is given {count} roles "
+                f"({', '.join(named[:-1])} and {named[-1]}); "
+                "a column can fill one role only: map each role to its own column",
+            )
     for role in required:
         if role not in result and role not in mapping:
             problems.add(
