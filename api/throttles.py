@@ -14,17 +14,31 @@ in ``REST_FRAMEWORK["DEFAULT_THROTTLE_RATES"]`` (see ``lcstore/settings.py``):
 
 Rates are looked up at request time, so ``override_settings`` and the test
 settings change them without a restart. A rate of None switches that budget off.
+
+Pages outside DRF (the upload form in ``web/``) charge the same ``uploads`` budget
+through :func:`upload_budget_charge`: one budget per account, whichever way the file
+comes in.
 """
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
+from types import SimpleNamespace
 from typing import Any
 
 from rest_framework.permissions import SAFE_METHODS
 from rest_framework.settings import api_settings
 from rest_framework.throttling import ScopedRateThrottle
 
-__all__ = ["SCOPES", "ReadThrottle", "ScopedThrottle", "WriteScopedThrottle"]
+__all__ = [
+    "SCOPES",
+    "BudgetSpent",
+    "ReadThrottle",
+    "ScopedThrottle",
+    "WriteScopedThrottle",
+    "upload_budget_charge",
+]
 
 SCOPES = ("read", "heavy", "uploads")
 
@@ -55,3 +69,32 @@ class ReadThrottle(ScopedThrottle):
         self.num_requests, self.duration = self.parse_rate(self.rate)
         # SimpleRateThrottle.allow_request, skipping ScopedRateThrottle's view lookup.
         return super(ScopedRateThrottle, self).allow_request(request, view)
+
+
+@dataclass(frozen=True)
+class BudgetSpent:
+    """A spent budget: the whole seconds to wait (the Retry-After value) and the rate."""
+
+    retry_after_s: int
+    allowed: int
+    period_s: int
+
+
+def upload_budget_charge(request: Any) -> BudgetSpent | None:
+    """Charge one write of a page (a Django request, not a DRF view) to the ``uploads`` budget.
+
+    The throttle, scope and cache key are those of ``POST uploads/``, so the API and the
+    form draw on one budget per account. None when the request is allowed (or the
+    budget is off); else what to tell the client. The wait is rounded up to whole
+    seconds, as DRF's ``Throttled`` does for its Retry-After header.
+    """
+    throttle = WriteScopedThrottle()
+    if throttle.allow_request(request, SimpleNamespace(throttle_scope="uploads")):
+        return None
+    wait = throttle.wait()
+    seconds = float(throttle.duration) if wait is None else wait
+    return BudgetSpent(
+        retry_after_s=max(1, math.ceil(seconds)),
+        allowed=int(throttle.num_requests),
+        period_s=int(throttle.duration),
+    )

@@ -6,7 +6,6 @@ API's own PNG rendering, so what a person sees is what a script pulls.
 
 from __future__ import annotations
 
-import json
 from typing import Any
 from urllib.parse import urlencode
 
@@ -14,7 +13,9 @@ from django.contrib.auth.decorators import login_required
 from django.http import HttpRequest, HttpResponse
 from django.shortcuts import get_object_or_404, render
 
+from api.throttles import BudgetSpent, upload_budget_charge
 from lcstore import roles
+from lcstore.ingest.columns import columns_mapping_parse
 from lcstore.ingest.pipeline import UploadInvalid
 from lcstore.models import Band, Instrument, Source
 from lcstore.queries import source_summaries
@@ -65,6 +66,30 @@ def source_detail(request: HttpRequest, slug: str) -> HttpResponse:
     )
 
 
+def _wait_words(seconds: int) -> str:
+    if seconds < 90:
+        return f"{seconds} second{'s' if seconds != 1 else ''}"
+    minutes = -(-seconds // 60)
+    if minutes < 90:
+        return f"{minutes} minutes"
+    return f"{-(-minutes // 60)} hours"
+
+
+def _period_words(seconds: int) -> str:
+    return {1: "second", 60: "minute", 3600: "hour", 86400: "day"}.get(
+        seconds, f"{seconds} seconds"
+    )
+
+
+def _budget_message(spent: BudgetSpent) -> str:
+    return (
+        f"You have sent too many uploads: this account may send {spent.allowed} per "
+        f"{_period_words(spent.period_s)} (the form and the API share the budget). "
+        f"This file was not read and nothing was stored. "
+        f"Try again in {_wait_words(spent.retry_after_s)}."
+    )
+
+
 @login_required
 def upload_form(request: HttpRequest) -> HttpResponse:
     context: dict[str, Any] = {
@@ -75,13 +100,22 @@ def upload_form(request: HttpRequest) -> HttpResponse:
         "values": request.POST if request.method == "POST" else {},
     }
     status = 200
+    spent = None
+    if request.method == "POST" and context["may_upload"]:
+        # The API's upload budget (api/throttles.py), charged before any work, as there.
+        spent = upload_budget_charge(request)
+    if spent is not None:
+        context["error"] = _budget_message(spent)
+        response = render(request, "web/upload.html", context, status=429)
+        response["Retry-After"] = str(spent.retry_after_s)
+        return response
     if request.method == "POST" and context["may_upload"]:
         f = request.FILES.get("file")
         columns = request.POST.get("columns") or ""
         try:
             if f is None:
                 raise ValueError("choose a file to upload")
-            mapping = json.loads(columns) if columns.strip() else None
+            mapping = columns_mapping_parse(columns)
             params = UploadParams(
                 instrument=request.POST.get("instrument", ""),
                 source=request.POST.get("source") or None,
