@@ -16,7 +16,7 @@ from rest_framework.response import Response
 from api.throttles import ReadThrottle, WriteScopedThrottle
 from api.views.analysis import CorrelationQuery, LagsQuery, lag_params
 from lcstore import roles
-from lcstore.jobs import JOB_KINDS, job_enqueue
+from lcstore.jobs import JOB_KINDS, job_enqueue, jobs_sweep_stale
 from lcstore.models import Job, JobState, Source
 
 __all__ = ["JobViewSet"]
@@ -94,6 +94,19 @@ class JobViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.Gene
         from rest_framework.permissions import IsAuthenticated
 
         return [IsAuthenticated()]
+
+    def get_object(self):  # type: ignore[no-untyped-def]
+        # A job whose worker stopped shows as failed (and can be retried), not running for ever.
+        job = super().get_object()
+        if job.state == JobState.RUNNING and jobs_sweep_stale(ids=[job.pk]):
+            job.refresh_from_db()
+        return job
+
+    def list(self, request: Request, *args: Any, **kwargs: Any) -> Response:
+        jobs_sweep_stale(
+            ids=self.get_queryset().filter(state=JobState.RUNNING).values_list("pk", flat=True)
+        )
+        return super().list(request, *args, **kwargs)
 
     @extend_schema(request=JobInput, responses={202: JobSerializer})
     def create(self, request: Request, *args: Any, **kwargs: Any) -> Response:
