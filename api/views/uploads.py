@@ -9,11 +9,12 @@ from django.http import HttpResponse
 from drf_spectacular.utils import extend_schema
 from rest_framework import mixins, serializers, status, viewsets
 from rest_framework.decorators import action
-from rest_framework.parsers import FormParser, JSONParser, MultiPartParser
+from rest_framework.parsers import FormParser, JSONParser
 from rest_framework.request import Request
 from rest_framework.response import Response
 
 from api.filters import UploadFilter
+from api.parsers import CompleteMultiPartParser
 from api.permissions import ContributorsUpload
 from api.serializers import ColumnsMappingField, UploadSerializer
 from api.throttles import ReadThrottle, WriteScopedThrottle
@@ -63,7 +64,7 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
     serializer_class = UploadSerializer
     permission_classes = [ContributorsUpload]
     filterset_class = UploadFilter
-    parser_classes = [MultiPartParser, FormParser]
+    parser_classes = [CompleteMultiPartParser, FormParser]
     throttle_classes = [ReadThrottle, WriteScopedThrottle]
     throttle_scope = "uploads"
 
@@ -158,7 +159,11 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
         return response
 
     @extend_schema(request=RetractInput, responses={200: UploadSerializer})
-    @action(detail=True, methods=["post"], parser_classes=[JSONParser, FormParser, MultiPartParser])
+    @action(
+        detail=True,
+        methods=["post"],
+        parser_classes=[JSONParser, FormParser, CompleteMultiPartParser],
+    )
     def retract(self, request: Request, pk: str | None = None) -> Response:
         upload = self.get_object()
         inp = RetractInput(data=request.data)

@@ -1,0 +1,54 @@
+"""Request parsers: multipart that refuses a body cut short."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from rest_framework.exceptions import ParseError
+from rest_framework.parsers import MultiPartParser
+
+__all__ = ["CompleteMultiPartParser"]
+
+_DRAIN = 64 * 1024
+
+
+class _CountingStream:
+    """A read-only file-like view of the request body that counts the bytes read."""
+
+    def __init__(self, stream: Any):
+        self._stream = stream
+        self.n_read = 0
+
+    def read(self, size: int = -1) -> bytes:
+        chunk = self._stream.read(size)
+        self.n_read += len(chunk)
+        return chunk
+
+
+class CompleteMultiPartParser(MultiPartParser):
+    """Django's multipart parser, plus a check that the whole body arrived.
+
+    Django's parser stops at the end of the stream without comparing what it read
+    with ``Content-Length``: a client that disconnects after the file part leaves a
+    request whose later fields (an ``embargo_until``, a ``reduction`` cut mid-word)
+    are missing or short, and it would be stored as if complete. The WSGI stream is
+    limited to ``Content-Length``, so reading fewer bytes means the body was cut.
+    """
+
+    def parse(self, stream: Any, media_type: Any = None, parser_context: Any = None) -> Any:
+        parser_context = parser_context or {}
+        meta = parser_context["request"].META
+        try:
+            expected = int(meta.get("CONTENT_LENGTH") or 0)
+        except ValueError:
+            raise ParseError("Content-Length is not a number") from None
+        counted = _CountingStream(stream)
+        result = super().parse(counted, media_type, parser_context)
+        while counted.read(_DRAIN):  # an epilogue after the closing boundary, if any
+            pass
+        if expected and counted.n_read < expected:
+            raise ParseError(
+                f"the request body ended after {counted.n_read} of {expected} bytes "
+                "(the client stopped sending); nothing was stored"
+            )
+        return result
