@@ -380,10 +380,21 @@ class FluxPoint(models.Model):
     """
 
     id = models.BigAutoField(primary_key=True)
-    source = models.ForeignKey(Source, on_delete=models.PROTECT, db_index=False)
-    band = models.ForeignKey(Band, on_delete=models.PROTECT, db_index=False)
-    instrument = models.ForeignKey(Instrument, on_delete=models.PROTECT, db_index=False)
-    upload = models.ForeignKey(Upload, on_delete=models.PROTECT, db_index=False)
+    # No database constraint on these four keys: PostgreSQL checks a foreign key
+    # row by row at commit, which cost more than the COPY of the points itself.
+    # lcstore.ingest.load checks (and locks) the distinct ids of a load against
+    # the catalogue before the COPY; PROTECT still guards deletes in the ORM
+    # (DEVELOPERS.md, "Point table integrity").
+    source = models.ForeignKey(
+        Source, on_delete=models.PROTECT, db_index=False, db_constraint=False
+    )
+    band = models.ForeignKey(Band, on_delete=models.PROTECT, db_index=False, db_constraint=False)
+    instrument = models.ForeignKey(
+        Instrument, on_delete=models.PROTECT, db_index=False, db_constraint=False
+    )
+    upload = models.ForeignKey(
+        Upload, on_delete=models.PROTECT, db_index=False, db_constraint=False
+    )
     t = models.FloatField(help_text="MJD (TDB) at the solar-system barycentre")
     value = models.FloatField(help_text="canonical unit of the band kind")
     error = models.FloatField(null=True)

@@ -13,7 +13,7 @@ from django.db.models import Max
 from django.utils import timezone
 
 from lcstore import roles
-from lcstore.ingest.load import points_load
+from lcstore.ingest.load import points_load, stored_file_save
 from lcstore.ingest.pipeline import (
     BandRecord,
     InstrumentRecord,
@@ -311,9 +311,9 @@ def upload_store(
     """
     source_ids = sorted({int(i) for i in np.unique(prepared.source_id)})
     band_ids = sorted({int(i) for i in np.unique(prepared.band_id)})
-    if not StoredFile.objects.filter(pk=sha256).exists():
-        StoredFile.objects.create(sha256=sha256, size=len(data), content=data)
     now = now or timezone.now()
+    if not StoredFile.objects.filter(pk=sha256).exists():
+        stored_file_save(sha256=sha256, data=data, now=now)
     ts = prepared.time
     upload = Upload.objects.create(
         uploader=uploader,

@@ -63,10 +63,13 @@ def binary_copy_chunks(
     yield SIGNATURE
     if n:
         codes = _pattern_codes(columns, n)
-        uniq, first = np.unique(codes, return_index=True)
-        for code in uniq[np.argsort(first)]:
-            rows = np.flatnonzero(codes == code)
-            yield from _pattern_chunks(columns, rows, chunk_rows)
+        if codes.min() == codes.max():  # one NULL pattern (the usual file): rows in order
+            yield from _pattern_chunks(columns, np.arange(n), chunk_rows)
+        else:
+            uniq, first = np.unique(codes, return_index=True)
+            for code in uniq[np.argsort(first)]:
+                rows = np.flatnonzero(codes == code)
+                yield from _pattern_chunks(columns, rows, chunk_rows)
     yield TRAILER
 
 
@@ -83,13 +86,16 @@ def _pattern_chunks(
             present.append((i, col))
     dtype = np.dtype(fields)
     lengths = {i: np.dtype(_WIRE[c.pg_type]).itemsize for i, c in enumerate(columns)}
+    # Consecutive rows (a whole column, or one run of a pattern) are sliced, not gathered.
+    contiguous = len(rows) > 0 and int(rows[-1]) - int(rows[0]) == len(rows) - 1
+    present_ids = {i for i, _ in present}
     for start in range(0, len(rows), chunk_rows):
         idx = rows[start : start + chunk_rows]
+        take: slice | np.ndarray = slice(int(idx[0]), int(idx[-1]) + 1) if contiguous else idx
         rec = np.empty(len(idx), dtype=dtype)
         rec["count"] = len(columns)
-        present_ids = {i for i, _ in present}
         for i in range(len(columns)):
             rec[f"len{i}"] = lengths[i] if i in present_ids else -1
         for i, col in present:
-            rec[f"v{i}"] = col.values[idx]
+            rec[f"v{i}"] = col.values[take]
         yield rec.tobytes()
