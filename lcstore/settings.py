@@ -119,6 +119,29 @@ else:
         }
     }
 
+# A streaming standby for reads (lcstore/dbrouter.py): reads go to it, writes, transactions
+# and, for LCSTORE_REPLICA_STICKY_SECONDS after a request of theirs wrote, the reads of
+# that user go to the primary. The sticky marks live in the cache: with several API
+# processes set REDIS_URL so they share them. The replica's sessions are read-only, so
+# a misrouted write fails loudly even when the URL names a server that accepts writes.
+LCSTORE_REPLICA_STICKY_SECONDS = _env_int("LCSTORE_REPLICA_STICKY_SECONDS", 10)
+if os.environ.get("DATABASE_REPLICA_URL"):
+    if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
+        from django.core.exceptions import ImproperlyConfigured
+
+        raise ImproperlyConfigured("DATABASE_REPLICA_URL needs DATABASE_URL (the primary)")
+    DATABASES["replica"] = dj_database_url.parse(
+        os.environ["DATABASE_REPLICA_URL"], conn_max_age=60
+    )
+    DATABASES["replica"].setdefault("OPTIONS", {})["options"] = (
+        "-c default_transaction_read_only=on"
+    )
+    # Tests: no database of its own; it reads the primary's test database by name
+    # (a physical standby carries it).
+    DATABASES["replica"]["TEST"] = {"MIRROR": "default"}
+    DATABASE_ROUTERS = ["lcstore.dbrouter.PrimaryReplicaRouter"]
+    MIDDLEWARE.append("lcstore.dbrouter.ReplicaRoutingMiddleware")
+
 DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"
 
 AUTH_PASSWORD_VALIDATORS = [
@@ -144,6 +167,9 @@ LCSTORE_MAX_BINS = _env_int("LCSTORE_MAX_BINS", 1_000_000)
 LCSTORE_MAX_LAG_POINTS = _env_int("LCSTORE_MAX_LAG_POINTS", 20_000)
 LCSTORE_MAX_SIMULATIONS = _env_int("LCSTORE_MAX_SIMULATIONS", 10_000)
 LCSTORE_SYNC_SIMULATIONS = _env_int("LCSTORE_SYNC_SIMULATIONS", 200)
+# A running job whose worker is gone is failed by the sweep (lcstore/jobs.py): on PostgreSQL
+# when its session lock is free, on SQLite once it started this many seconds ago.
+LCSTORE_JOB_STALE_SECONDS = _env_int("LCSTORE_JOB_STALE_SECONDS", 3600)
 LCSTORE_PUBLIC_READ = _env_bool("LCSTORE_PUBLIC_READ", False)
 
 
