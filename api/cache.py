@@ -16,14 +16,14 @@ from django.core.cache import cache
 from django.http import HttpResponse, HttpResponseBase
 
 from lcstore.models import Source
-from lcstore.versions import catalogue_version, source_data_version
+from lcstore.versions import answer_version
 
 __all__ = ["cached_answer"]
 
 
 def _key(request, source: Source, fmt: str, version: str) -> str:  # type: ignore[no-untyped-def]
     query = "&".join(sorted(f"{k}={v}" for k, v in request.query_params.lists() for v in v))
-    raw = f"{request.path}|{fmt}|{query}|{version}|{catalogue_version()}"
+    raw = f"{request.path}|{fmt}|{query}|{version}"
     return "lcstore:answer:" + hashlib.sha256(raw.encode()).hexdigest()
 
 
@@ -36,7 +36,7 @@ def cached_answer(
     """Serve a cached body when the data is unchanged; else build, and keep small bodies."""
     if not getattr(settings, "LCSTORE_CACHE_ANSWERS", True):
         return build()
-    version = source_data_version(source)
+    version = answer_version(source)  # data and catalogue versions, one query
     if version is None:
         return build()
     key = _key(request, source, fmt, version)

@@ -31,11 +31,14 @@ from api.renderers import (
     table_bytes,
 )
 from lcstore.curves import (
+    SQL_COPY,
     CurveRequest,
     CurveRequestError,
     Lightcurve,
     lightcurve_build,
+    lightcurve_raw_csv,
     parse_units,
+    pull_path,
 )
 from lcstore.models import Source
 from lcstore.science.dust import LAWS
@@ -300,10 +303,20 @@ class LightcurveView(ComputedView):
         curve_request = _curve_request(params)
 
         def build() -> HttpResponseBase:
+            if pull_path(curve_request, fmt=fmt, time_format=params["time_format"]) == SQL_COPY:
+                chunks = lightcurve_raw_csv(source=source, user=request.user, request=curve_request)
+                return csv_response(StreamingHttpResponse(chunks), source)
             lc = lightcurve_build(source=source, user=request.user, request=curve_request)
             return render_lightcurve(lc, params, fmt)
 
         return cached_answer(request, source, fmt, build)
+
+
+def csv_response(response: HttpResponseBase, source: Source) -> HttpResponseBase:
+    """The headers of every CSV light-curve answer."""
+    response["Content-Type"] = "text/csv; charset=utf-8"
+    response["Content-Disposition"] = f'inline; filename="{source.slug}-lightcurve.csv"'
+    return response
 
 
 def render_lightcurve(lc: Lightcurve, params: dict[str, Any], fmt: str) -> HttpResponseBase:
@@ -314,13 +327,8 @@ def render_lightcurve(lc: Lightcurve, params: dict[str, Any], fmt: str) -> HttpR
         header = BINNED if lc.binned else UNBINNED
         chunks = csv_stream(header, _blocks(lc, tf))
         if lc.binned:
-            response: HttpResponseBase = HttpResponse(
-                b"".join(chunks), content_type="text/csv; charset=utf-8"
-            )
-        else:
-            response = StreamingHttpResponse(chunks, content_type="text/csv; charset=utf-8")
-        response["Content-Disposition"] = f'inline; filename="{source.slug}-lightcurve.csv"'
-        return response
+            return csv_response(HttpResponse(b"".join(chunks)), source)
+        return csv_response(StreamingHttpResponse(chunks), source)
     if fmt in ("ecsv", "votable"):
         body = table_bytes(lightcurve_table(lc, tf), fmt)
         ctype = "text/x-ecsv" if fmt == "ecsv" else "application/x-votable+xml"
