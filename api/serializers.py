@@ -22,6 +22,7 @@ from lcstore.models import (
     Instrument,
     Source,
     Upload,
+    UploadStatus,
 )
 
 __all__ = [
@@ -183,6 +184,16 @@ class UploadSerializer(serializers.ModelSerializer):
             "warnings",
         ]
         read_only_fields = fields
+
+    def to_representation(self, obj: Upload) -> dict[str, Any]:
+        data = super().to_representation(obj)
+        if data["status"] == UploadStatus.SUPERSEDED and data["superseded_by"] is None:
+            # Every successor is embargoed from this account: for them the supersession has
+            # not happened yet (lcstore.queries.uploads_visible counts these points), and
+            # "superseded" with no successor would tell that an embargoed one exists.
+            data["status"] = UploadStatus.ACCEPTED
+            data["superseded_at"] = None
+        return data
 
     def get_superseded_by(self, obj: Upload) -> int | None:
         """The successor, named only to accounts that may see it (embargo)."""
