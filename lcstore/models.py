@@ -56,8 +56,10 @@ INSTRUMENT_FIELDS = (
     "default_time_reference",
     "met_epoch",
 )
-BAND_FIELDS = (
-    "name",
+#: The curated fields that enter a conversion of uploaded points: recorded in each
+#: upload's metadata snapshot (lcstore.services) and re-derived when they change
+#: (lcstore.rederive).
+BAND_CONVERSION_FIELDS = (
     "kind",
     "wavelength_eff",
     "mag_system",
@@ -68,6 +70,18 @@ BAND_FIELDS = (
     "photon_index",
     "counts_to_energy_flux",
 )
+INSTRUMENT_CONVERSION_FIELDS = (
+    "site_lon",
+    "site_lat",
+    "site_height",
+    "kind",
+    "met_epoch",
+    "default_time_format",
+    "default_time_scale",
+    "default_time_reference",
+)
+SOURCE_CONVERSION_FIELDS = ("ra", "dec")
+BAND_FIELDS = ("name", *BAND_CONVERSION_FIELDS)
 
 TimeFormat = models.TextChoices("TimeFormat", [(f.upper(), f) for f in TIME_FORMATS])
 TimeScale = models.TextChoices("TimeScale", [(s.upper(), s) for s in TIME_SCALES])

@@ -27,6 +27,7 @@ from django.db import models, transaction
 from django.db.models import Exists, OuterRef, Q, QuerySet
 from django.utils import timezone
 
+from lcstore import models as models_
 from lcstore.ingest.pipeline import PreparedPoints, UploadInvalid
 from lcstore.models import Band, FluxPoint, Instrument, Source, Upload, UploadStatus
 from lcstore.services import (
@@ -47,25 +48,14 @@ __all__ = [
     "uploads_rederive",
 ]
 
-BAND_CONVERSION_FIELDS = frozenset(
-    {
-        "kind",
-        "wavelength_eff",
-        "mag_system",
-        "zero_point_jy",
-        "energy_min_kev",
-        "energy_max_kev",
-        "pivot_energy_kev",
-        "photon_index",
-        "counts_to_energy_flux",
-    }
-)
+BAND_CONVERSION_FIELDS = frozenset(models_.BAND_CONVERSION_FIELDS)
 _SITE_FIELDS = frozenset({"site_lon", "site_lat", "site_height", "kind"})
 _TIME_DEFAULT_FIELDS = frozenset(
     {"default_time_format", "default_time_scale", "default_time_reference"}
 )
-INSTRUMENT_CONVERSION_FIELDS = _SITE_FIELDS | _TIME_DEFAULT_FIELDS | {"met_epoch"}
-SOURCE_CONVERSION_FIELDS = frozenset({"ra", "dec"})
+INSTRUMENT_CONVERSION_FIELDS = frozenset(models_.INSTRUMENT_CONVERSION_FIELDS)
+SOURCE_CONVERSION_FIELDS = frozenset(models_.SOURCE_CONVERSION_FIELDS)
+assert _SITE_FIELDS | _TIME_DEFAULT_FIELDS | {"met_epoch"} == INSTRUMENT_CONVERSION_FIELDS
 
 # model -> (keyword of affected_uploads, key in the metadata snapshot, conversion fields)
 _CURATED: dict[type[models.Model], tuple[str, str, frozenset[str]]] = {

@@ -23,7 +23,17 @@ from lcstore.ingest.pipeline import (
     prepare_points,
 )
 from lcstore.ingest.readers import FileProblem, RawTable, ReadError, read_upload
-from lcstore.models import Band, Instrument, Source, StoredFile, Upload, UploadStatus
+from lcstore.models import (
+    BAND_CONVERSION_FIELDS,
+    INSTRUMENT_CONVERSION_FIELDS,
+    SOURCE_CONVERSION_FIELDS,
+    Band,
+    Instrument,
+    Source,
+    StoredFile,
+    Upload,
+    UploadStatus,
+)
 from lcstore.queries import upload_visible_to
 
 __all__ = [
@@ -86,34 +96,9 @@ def _problem(message: str, column: str | None = None) -> UploadInvalid:
 # The curated fields that enter a conversion, recorded in ``parameters["metadata"]``
 # (lcstore/rederive.py lists which uploads each of them enters).
 _SNAPSHOT_FIELDS: dict[str, tuple[Any, tuple[str, ...]]] = {
-    "instrument": (
-        Instrument,
-        (
-            "site_lon",
-            "site_lat",
-            "site_height",
-            "kind",
-            "met_epoch",
-            "default_time_format",
-            "default_time_scale",
-            "default_time_reference",
-        ),
-    ),
-    "sources": (Source, ("ra", "dec")),
-    "bands": (
-        Band,
-        (
-            "kind",
-            "wavelength_eff",
-            "mag_system",
-            "zero_point_jy",
-            "energy_min_kev",
-            "energy_max_kev",
-            "pivot_energy_kev",
-            "photon_index",
-            "counts_to_energy_flux",
-        ),
-    ),
+    "instrument": (Instrument, INSTRUMENT_CONVERSION_FIELDS),
+    "sources": (Source, SOURCE_CONVERSION_FIELDS),
+    "bands": (Band, BAND_CONVERSION_FIELDS),
 }
 
 
