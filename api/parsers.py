@@ -7,7 +7,7 @@ from typing import Any
 from rest_framework.exceptions import ParseError
 from rest_framework.parsers import MultiPartParser
 
-__all__ = ["CompleteMultiPartParser"]
+__all__ = ["CompleteMultiPartParser", "body_shortfall"]
 
 _DRAIN = 64 * 1024
 
@@ -52,3 +52,20 @@ class CompleteMultiPartParser(MultiPartParser):
                 "(the client stopped sending); nothing was stored"
             )
         return result
+
+
+def body_shortfall(request: Any) -> tuple[int, int] | None:
+    """(bytes read, Content-Length) when a parsed Django request's body was cut, else None.
+
+    For views that read ``request.POST``/``request.FILES`` themselves (the web upload
+    form): the same check as :class:`CompleteMultiPartParser`. Django's WSGI stream is
+    a ``LimitedStream`` capped at ``Content-Length``; what is left of it after the
+    parser is drained, and a stream that ends early was cut by the client.
+    """
+    stream = getattr(request, "_stream", None)
+    limit, pos = getattr(stream, "limit", None), getattr(stream, "_pos", None)
+    if stream is None or limit is None or pos is None:
+        return None
+    while stream.read(_DRAIN):
+        pass
+    return (stream._pos, limit) if stream._pos < limit else None

@@ -13,6 +13,7 @@ from django.contrib.auth.decorators import login_required
 from django.http import HttpRequest, HttpResponse
 from django.shortcuts import get_object_or_404, render
 
+from api.parsers import body_shortfall
 from api.throttles import BudgetSpent, upload_budget_charge
 from lcstore import roles
 from lcstore.ingest.columns import columns_mapping_parse
@@ -113,6 +114,12 @@ def upload_form(request: HttpRequest) -> HttpResponse:
         f = request.FILES.get("file")
         columns = request.POST.get("columns") or ""
         try:
+            cut = body_shortfall(request)
+            if cut is not None:
+                raise ValueError(
+                    f"the upload ended after {cut[0]} of {cut[1]} bytes (the connection was "
+                    "cut); nothing was stored, please send it again"
+                )
             if f is None:
                 raise ValueError("choose a file to upload")
             mapping = columns_mapping_parse(columns)

@@ -110,3 +110,63 @@ def test_form_refuses_two_columns_for_one_role(catalogue, contributor, client):
         0,
         0,
     )
+
+
+def _multipart(parts: list[tuple[str, str | None, bytes]], boundary: str) -> bytes:
+    out = b""
+    for name, filename, content in parts:
+        disp = f'form-data; name="{name}"' + (f'; filename="{filename}"' if filename else "")
+        out += f"--{boundary}\r\nContent-Disposition: {disp}\r\n".encode()
+        if filename:
+            out += b"Content-Type: text/csv\r\n"
+        out += b"\r\n" + content + b"\r\n"
+    return out + f"--{boundary}--\r\n".encode()
+
+
+@pytest.mark.parametrize("cut", ["none", "after the file", "inside the reduction"])
+def test_a_form_upload_cut_short_is_refused_and_stores_nothing(catalogue, contributor, cut):
+    """The form reads request.FILES itself, so it repeats the API parser's check
+    (api.parsers.body_shortfall): a body shorter than its Content-Length (RFC 9110 §8.6)
+    was cut by the client; a field after the file would be missing or truncated."""
+    from django.core.handlers.wsgi import WSGIRequest
+
+    from web.views import upload_form
+
+    boundary = "lcstoreBoundary7"
+    csv = b"time,value,error\n" + b"".join(
+        f"{60000 + i},{1.0 + 0.01 * i:.2f},0.05\n".encode() for i in range(50)
+    )
+    parts = [(k, None, v.encode()) for k, v in FIELDS.items()]
+    parts += [("file", "cut.csv", csv), ("reduction", None, b"aperture photometry, 5 arcsec")]
+    body = _multipart(parts, boundary)
+    sent = {
+        "none": body,
+        "after the file": body[: body.index(b'name="reduction"') - 60],
+        "inside the reduction": body[: body.index(b"photometry")],
+    }[cut]
+    request = WSGIRequest(
+        {
+            "REQUEST_METHOD": "POST",
+            "PATH_INFO": "/upload/",
+            "SERVER_NAME": "testserver",
+            "SERVER_PORT": "80",
+            "wsgi.url_scheme": "http",
+            "wsgi.input": io.BytesIO(sent),  # the connection ends where the bytes do
+            "CONTENT_TYPE": f"multipart/form-data; boundary={boundary}",
+            "CONTENT_LENGTH": str(len(body)),
+        }
+    )
+    request.user = contributor
+    request._dont_enforce_csrf_checks = True
+    response = upload_form(request)
+    if cut == "none":
+        assert response.status_code == 201, response.content[:500]
+        assert Upload.objects.get().reduction == "aperture photometry, 5 arcsec"
+        return
+    assert response.status_code == 400
+    assert b"the connection was cut" in response.content
+    assert (Upload.objects.count(), StoredFile.objects.count(), FluxPoint.objects.count()) == (
+        0,
+        0,
+        0,
+    )
