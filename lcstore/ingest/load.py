@@ -24,9 +24,10 @@ from lcstore.ingest.pipeline import PreparedPoints, UploadInvalid
 from lcstore.ingest.readers import FileProblem
 from lcstore.models import Band, FluxPoint, Instrument, Source, StoredFile, Upload
 
-__all__ = ["points_load", "references_check", "stored_file_save"]
+__all__ = ["POINT_COLUMNS", "points_load", "references_check", "stored_file_save"]
 
-_COLUMNS = (
+#: The point table's columns a load writes, in COPY order.
+POINT_COLUMNS = (
     "source_id",
     "band_id",
     "instrument_id",
@@ -136,15 +137,15 @@ def points_load(points: PreparedPoints, *, instrument_id: int, upload_id: int) -
     table = FluxPoint._meta.db_table
     cols = _copy_columns(points, instrument_id=instrument_id, upload_id=upload_id)
     if connection.vendor == "postgresql":
-        sql = f"COPY {table} ({', '.join(_COLUMNS)}) FROM STDIN (FORMAT BINARY)"
+        sql = f"COPY {table} ({', '.join(POINT_COLUMNS)}) FROM STDIN (FORMAT BINARY)"
         with connection.cursor() as cursor:
             with cursor.cursor.copy(sql) as copy:
                 for chunk in binary_copy_chunks(cols):
                     copy.write(chunk)
         return len(points)
     # Embedded demo database: plain batched INSERTs.
-    placeholders = ", ".join(["%s"] * len(_COLUMNS))
-    sql = f"INSERT INTO {table} ({', '.join(_COLUMNS)}) VALUES ({placeholders})"
+    placeholders = ", ".join(["%s"] * len(POINT_COLUMNS))
+    sql = f"INSERT INTO {table} ({', '.join(POINT_COLUMNS)}) VALUES ({placeholders})"
     arrays = []
     for c in cols:
         vals = c.values.astype(object)

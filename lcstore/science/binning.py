@@ -583,16 +583,33 @@ def bin_fixed(
         occupied, group = np.unique(offset, return_inverse=True)
 
     mean, sigma, limit, n = aggregate(group, v, e, ul, occupied.size)
-    k = (k_first + occupied).astype(float)
-    lo = origin + k * width
-    hi = origin + (k + 1.0) * width
+    return _fixed_bins_curve(k_first + occupied, width, origin, mean, sigma, limit, n)
+
+
+def _fixed_bins_curve(
+    k: np.ndarray,
+    width: float,
+    origin: float,
+    value: np.ndarray,
+    error: np.ndarray,
+    upper_limit: np.ndarray,
+    n: np.ndarray,
+) -> BinnedCurve:
+    """The curve of fixed bins with indices ``k``: edges origin + k·width, centres midway.
+
+    One place for both fixed-bin paths (points and SQL partial sums), so their
+    edges are the same floats.
+    """
+    kf = np.asarray(k).astype(float)
+    lo = origin + kf * width
+    hi = origin + (kf + 1.0) * width
     return BinnedCurve(
         time=0.5 * (lo + hi),
         time_lo=lo,
         time_hi=hi,
-        value=mean,
-        error=sigma,
-        upper_limit=limit,
+        value=value,
+        error=error,
+        upper_limit=upper_limit,
         n=n,
     )
 
@@ -755,18 +772,8 @@ def bin_fixed_from_partials(
         np.minimum.at(smallest, group[wanted], lim[wanted] * f[wanted])
         out_value[limits_only] = smallest[limits_only]
 
-    kf = occupied.astype(float)
-    lo = origin + kf * width
-    hi = origin + (kf + 1.0) * width
-    return BinnedCurve(
-        time=0.5 * (lo + hi),
-        time_lo=lo,
-        time_hi=hi,
-        value=out_value,
-        error=out_error,
-        upper_limit=limits_only,
-        n=np.where(n_det_g > 0, n_det_g, n_lim_g).astype(np.int64),
-    )
+    n = np.where(n_det_g > 0, n_det_g, n_lim_g).astype(np.int64)
+    return _fixed_bins_curve(occupied, width, origin, out_value, out_error, limits_only, n)
 
 
 def bin_blocks(

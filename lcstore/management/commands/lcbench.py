@@ -53,6 +53,7 @@ from django.db import connection
 
 from lcstore import bench
 from lcstore.bench import Row, Timing, best_of, seconds_text
+from lcstore.ingest.load import POINT_COLUMNS
 
 BASE_DIR = Path(__file__).resolve().parents[3]
 DEFAULT_SERVER = "postgres://postgres@127.0.0.1:5432/postgres"
@@ -61,20 +62,6 @@ PHASES = ("ingest", "binned", "raw", "load", "growth", "isolation", "lags", "par
 DEFAULT_PHASES = tuple(p for p in PHASES if p != "partition")
 DEFAULT_REDIS_URL = "redis://127.0.0.1:6379/13"
 GROWTH_SIZES = (10_000, 100_000, 1_000_000, 10_000_000)
-POINT_COLUMNS = (
-    "source_id",
-    "band_id",
-    "instrument_id",
-    "upload_id",
-    "t",
-    "value",
-    "error",
-    "upper_limit",
-    "time_error",
-    "time_orig",
-    "value_orig",
-    "error_orig",
-)
 BARE_TABLE = "lcbench_bare"
 PART_TABLE = "lcbench_part"
 N_PARTITIONS = 8
