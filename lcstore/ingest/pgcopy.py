@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["CopyColumn", "binary_copy_chunks", "SIGNATURE"]
+__all__ = ["CopyColumn", "SIGNATURE", "TRAILER", "binary_copy_chunks"]
 
 SIGNATURE = b"PGCOPY\n\xff\r\n\x00" + (0).to_bytes(4, "big") + (0).to_bytes(4, "big")
 TRAILER = (-1).to_bytes(2, "big", signed=True)
@@ -47,12 +47,14 @@ def _pattern_codes(columns: Sequence[CopyColumn], n: int) -> np.ndarray:
 
 
 def binary_copy_chunks(
-    columns: Sequence[CopyColumn], *, chunk_rows: int = 100_000
+    columns: Sequence[CopyColumn], *, chunk_rows: int = 100_000, framed: bool = True
 ) -> Iterator[bytes]:
     """Yield the binary COPY stream for the rows, in pieces of about ``chunk_rows`` rows.
 
     Row order is kept within each NULL pattern; patterns follow one another
-    in order of first appearance.
+    in order of first appearance. ``framed=False`` leaves out the signature and
+    the trailer, for one stream written in several parts (send :data:`SIGNATURE`
+    before the first and :data:`TRAILER` after the last).
     """
     n = len(columns[0].values) if columns else 0
     for col in columns:
@@ -60,7 +62,8 @@ def binary_copy_chunks(
             raise ValueError("all COPY columns must have the same length")
         if col.pg_type not in _WIRE:
             raise ValueError(f"unsupported COPY type {col.pg_type!r}")
-    yield SIGNATURE
+    if framed:
+        yield SIGNATURE
     if n:
         codes = _pattern_codes(columns, n)
         if codes.min() == codes.max():  # one NULL pattern (the usual file): rows in order
@@ -70,7 +73,8 @@ def binary_copy_chunks(
             for code in uniq[np.argsort(first)]:
                 rows = np.flatnonzero(codes == code)
                 yield from _pattern_chunks(columns, rows, chunk_rows)
-    yield TRAILER
+    if framed:
+        yield TRAILER
 
 
 def _pattern_chunks(

@@ -86,6 +86,7 @@ __all__ = [
     "ReadError",
     "infer_format",
     "read_upload",
+    "read_upload_chunks",
 ]
 
 FORMATS = ("csv", "ecsv", "votable", "fits", "json")
@@ -517,7 +518,24 @@ def _ragged_problems(
     return expected, problems
 
 
-def _read_csv(data: bytes, max_rows: int | None, max_columns: int | None) -> RawTable:
+@dataclass
+class _CsvPlan:
+    """A delimited-text file after the whole-file checks, ready for the parser.
+
+    ``body`` holds the data lines only (no header, comments or blank lines), each
+    ending with a newline; ``row_numbers`` gives the file line of each of them.
+    """
+
+    body: bytes
+    row_numbers: np.ndarray
+    names: list[str]
+    unnamed: list[str]
+    options: dict[str, Any]
+    meta: dict[str, Any]
+
+
+def _csv_plan(data: bytes, max_rows: int | None, max_columns: int | None) -> _CsvPlan:
+    """Every check that needs the whole file: encoding, delimiter, header, field counts."""
     text, encoding, fallback = _utf8_bytes(data)
     if b"\n" not in text and b"\r" in text:  # old Mac line ends
         text = text.replace(b"\r", b"\n")
@@ -602,40 +620,6 @@ def _read_csv(data: bytes, max_rows: int | None, max_columns: int | None) -> Raw
     spaced = delimiter != _WHITESPACE and (
         (delimiter + " ").encode() in body or (delimiter + "\t").encode() in body
     )
-    try:
-        with _captured_warnings() as caught:
-            df = pd.read_csv(
-                io.BytesIO(body),
-                sep=r"\s+" if delimiter == _WHITESPACE else delimiter,
-                header=None,
-                names=names,
-                engine="c",
-                quotechar='"',
-                skipinitialspace=spaced,
-                decimal=decimal,
-                na_values=_EXTRA_NA,
-                keep_default_na=True,
-                skip_blank_lines=False,
-                index_col=False,
-                low_memory=False,
-                encoding="utf-8",
-            )
-    except (ValueError, pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise ReadError(f"the file cannot be read as delimited text: {exc}") from None
-    if len(df) != n_rows:
-        raise ReadError(
-            f"the parser found {len(df)} rows where the file has {n_rows} data lines "
-            "(a quote or line break in an odd place?)"
-        )
-    for name in unnamed:  # an empty trailing field on every line, say
-        if df[name].isna().all():
-            df = df.drop(columns=name)
-    for name in df.columns:
-        if not (
-            pd.api.types.is_numeric_dtype(df[name].dtype)
-            or pd.api.types.is_bool_dtype(df[name].dtype)
-        ):
-            df[name] = df[name].str.strip()
     meta: dict[str, Any] = {
         "delimiter": "whitespace" if delimiter == _WHITESPACE else delimiter,
         "decimal": decimal,
@@ -645,16 +629,85 @@ def _read_csv(data: bytes, max_rows: int | None, max_columns: int | None) -> Raw
     }
     if fallback:
         meta["encoding_fallback"] = fallback
+    row_numbers = line_numbers[1:] if has_header else line_numbers
+    return _CsvPlan(
+        body=body,
+        row_numbers=np.asarray(row_numbers, dtype=np.int64),
+        names=names,
+        unnamed=unnamed,
+        options={
+            "sep": r"\s+" if delimiter == _WHITESPACE else delimiter,
+            "skipinitialspace": spaced,
+            "decimal": decimal,
+        },
+        meta=meta,
+    )
+
+
+def _csv_parse(plan: _CsvPlan, body: bytes, row_numbers: np.ndarray) -> RawTable:
+    """Parse data lines of a planned file (all of ``plan.body``, or a run of its lines)."""
+    try:
+        with _captured_warnings() as caught:
+            df = pd.read_csv(
+                io.BytesIO(body),
+                header=None,
+                names=plan.names,
+                engine="c",
+                quotechar='"',
+                na_values=_EXTRA_NA,
+                keep_default_na=True,
+                skip_blank_lines=False,
+                index_col=False,
+                low_memory=False,
+                encoding="utf-8",
+                **plan.options,
+            )
+    except (ValueError, pd.errors.ParserError, UnicodeDecodeError) as exc:
+        raise ReadError(f"the file cannot be read as delimited text: {exc}") from None
+    if len(df) != len(row_numbers):
+        raise ReadError(
+            f"the parser found {len(df)} rows where the file has {len(row_numbers)} data lines "
+            "(a quote or line break in an odd place?)"
+        )
+    for name in plan.unnamed:  # an empty trailing field on every line, say
+        if df[name].isna().all():
+            df = df.drop(columns=name)
+    for name in df.columns:
+        if not (
+            pd.api.types.is_numeric_dtype(df[name].dtype)
+            or pd.api.types.is_bool_dtype(df[name].dtype)
+        ):
+            df[name] = df[name].str.strip()
+    meta = dict(plan.meta)
     if caught:
         meta["warnings"] = caught
-    row_numbers = line_numbers[1:] if has_header else line_numbers
     return RawTable(
         format="csv",
         columns=df.reset_index(drop=True),
         units=dict.fromkeys(map(str, df.columns)),
         meta=meta,
-        row_numbers=np.asarray(row_numbers, dtype=np.int64),
+        row_numbers=row_numbers,
     )
+
+
+def _read_csv(data: bytes, max_rows: int | None, max_columns: int | None) -> RawTable:
+    plan = _csv_plan(data, max_rows, max_columns)
+    return _csv_parse(plan, plan.body, plan.row_numbers)
+
+
+def _csv_chunks(plan: _CsvPlan, chunk_rows: int) -> Iterator[RawTable]:
+    """The planned file parsed in runs of ``chunk_rows`` data lines, in file order."""
+    n = plan.row_numbers.size
+    if n <= chunk_rows:
+        yield _csv_parse(plan, plan.body, plan.row_numbers)
+        return
+    ends = np.flatnonzero(np.frombuffer(plan.body, dtype=np.uint8) == 10) + 1
+    start = 0
+    for first in range(0, n, chunk_rows):
+        last = min(first + chunk_rows, n)
+        stop = int(ends[last - 1])
+        yield _csv_parse(plan, plan.body[start:stop], plan.row_numbers[first:last])
+        start = stop
 
 
 def _comment_header(
@@ -1094,3 +1147,53 @@ def read_upload(
             ]
             exc.args = (exc.message,)
         raise
+
+
+def _sliced(table: RawTable, chunk_rows: int) -> Iterator[RawTable]:
+    for first in range(0, max(len(table), 1), chunk_rows):
+        yield RawTable(
+            format=table.format,
+            columns=table.columns.iloc[first : first + chunk_rows].reset_index(drop=True),
+            units=table.units,
+            meta=table.meta,
+            row_numbers=table.row_numbers[first : first + chunk_rows],
+        )
+
+
+def read_upload_chunks(
+    data: bytes,
+    *,
+    filename: str | None = None,
+    format: str | None = None,
+    max_rows: int | None = None,
+    max_columns: int | None = None,
+    chunk_rows: int = 100_000,
+) -> Iterator[RawTable]:
+    """The file of :func:`read_upload` as tables of at most ``chunk_rows`` rows, in file order.
+
+    Delimited text is checked as a whole first (encoding, delimiter, header, field
+    counts, limits), then parsed one run of lines at a time, so a caller can work
+    on the first rows while the rest are parsed; other formats are read whole and
+    sliced. Each piece keeps the file's row numbers. A piece's column types are
+    inferred from its own rows, so a caller that finds a problem in a piece (a
+    :class:`ReadError` here, or a row problem later) should read the file whole
+    (:func:`read_upload`) to report it: that is the reference answer, and the
+    pieces agree with it row for row whenever every piece is clean.
+    """
+    fmt = (format or infer_format(data, filename)).strip().lower()
+    data = bytes(data)
+    if fmt != "csv" or not data or data.isspace():
+        table = read_upload(
+            data, filename=filename, format=format, max_rows=max_rows, max_columns=max_columns
+        )
+        yield from _sliced(table, chunk_rows)
+        return
+    plan = _csv_plan(data, max_rows, max_columns)
+    if plan.unnamed:  # whether such a column is dropped depends on every row
+        table = _csv_parse(plan, plan.body, plan.row_numbers)
+        _check_names(table)
+        yield from _sliced(table, chunk_rows)
+        return
+    for piece in _csv_chunks(plan, chunk_rows):
+        _check_names(piece)
+        yield piece
