@@ -10,6 +10,7 @@ and the original file is kept by checksum, so nothing is ever lost.
 from __future__ import annotations
 
 import uuid
+import zlib
 from typing import Any
 
 from django.conf import settings
@@ -305,12 +306,27 @@ class HostFlux(models.Model):
 
 
 class StoredFile(models.Model):
-    """An uploaded file's bytes, addressed by their SHA-256."""
+    """An uploaded file's bytes, addressed by their SHA-256.
+
+    ``content`` holds the bytes as sent (``encoding`` empty) or a zlib stream of
+    them (``encoding`` "zlib", RFC 1950); ``sha256`` and ``size`` are those of the
+    bytes as sent, which :meth:`original` gives back either way.
+    """
 
     sha256 = models.CharField(max_length=64, primary_key=True)
     size = models.BigIntegerField()
     content = models.BinaryField()
+    encoding = models.CharField(max_length=16, blank=True, default="")
     created_at = models.DateTimeField(default=timezone.now)
+
+    def original(self) -> bytes:
+        """The file's bytes as they were sent."""
+        content = bytes(self.content)
+        if self.encoding == "zlib":
+            return zlib.decompress(content)
+        if self.encoding:
+            raise ValueError(f"stored file {self.sha256}: unknown encoding {self.encoding!r}")
+        return content
 
 
 class UploadStatus(models.TextChoices):

@@ -256,7 +256,7 @@ def uploads_rederive(
             )
             if old.status != UploadStatus.ACCEPTED:
                 continue
-            data = bytes(old.file.content)
+            data = old.file.original()
             params = _params_of(old)
             try:
                 raw = upload_read(data=data, file_name=old.file_name, format=old.format)

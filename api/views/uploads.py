@@ -152,7 +152,7 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
     def file(self, request: Request, pk: str | None = None) -> HttpResponse:
         upload = self.get_object()
         stored = type(upload.file).objects.get(pk=upload.file_id)
-        response = HttpResponse(bytes(stored.content), content_type="application/octet-stream")
+        response = HttpResponse(stored.original(), content_type="application/octet-stream")
         safe_name = "".join(c for c in upload.file_name if c.isalnum() or c in "._-") or "upload"
         response["Content-Disposition"] = f'attachment; filename="{safe_name}"'
         response["X-Content-SHA256"] = stored.sha256
