@@ -85,21 +85,26 @@ def test_concurrent_uploads_of_the_same_bytes_store_them_once(
 
 @pytest.mark.django_db
 def test_a_database_error_at_the_last_row_leaves_nothing(catalogue, contributor, monkeypatch):
+    import contextlib
+
     import lcstore.services as services
 
-    real_load = services.points_load
+    real_stream = services.points_stream
 
-    def load_then_fail(*args, **kwargs):
-        real_load(*args, **kwargs)  # every row reached the table inside the transaction
+    @contextlib.contextmanager
+    def stream_then_fail(**kwargs):
+        with real_stream(**kwargs) as write:
+            yield write
+        # every row reached the table inside the transaction, and the COPY ended
         raise psycopg.errors.DiskFull("could not extend file: no space left on device")
 
-    monkeypatch.setattr(services, "points_load", load_then_fail)
+    monkeypatch.setattr(services, "points_stream", stream_then_fail)
     with pytest.raises(Exception, match="no space left"):
         upload_create(uploader=contributor, data=ROWS.encode(), file_name="f.csv", params=PARAMS)
     assert FluxPoint.objects.count() == 0
     assert Upload.objects.count() == 0 and StoredFile.objects.count() == 0
     # and the same file is accepted afterwards
-    monkeypatch.setattr(services, "points_load", real_load)
+    monkeypatch.setattr(services, "points_stream", real_stream)
     u = upload_create(uploader=contributor, data=ROWS.encode(), file_name="f.csv", params=PARAMS)
     assert u.n_points == 2000 and FluxPoint.objects.count() == 2000
 

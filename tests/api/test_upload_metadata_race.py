@@ -1,13 +1,14 @@
 """An upload's points are converted with the curated metadata its provenance names,
-even when a curated change is committed between the conversion and the store
+even when a curated change is committed while the upload is on its way
 (lcstore/services.py ``upload_create``).
 
-The race is made deterministic with a hook around the conversion
-(``lcstore.services.prepare_points``) that applies a curated change through the
-real service (``curated_change_apply``, real ORM, real PostgreSQL) right after
-the file was converted and before the upload's transaction opens. A second test
-runs the change on another database connection while the upload is being
-stored and checks that the change waits for the upload and then re-derives it.
+The race is made deterministic with a hook around the read
+(``lcstore.services.upload_read_chunks``) that applies a curated change through
+the real service (``curated_change_apply``, real ORM, real PostgreSQL) right
+after the file was read and checked and before the upload's transaction opens
+(which share-locks the curated rows, then converts). A second test runs the
+change on another database connection while the upload is being converted and
+stored, and checks that the change waits for the upload and then re-derives it.
 
 Anchors (named beside each check):
 - m = -2.5 log10(F / ZP): Bessell, Castelli & Plez 1998, Table A2 (R = 3064 Jy;
@@ -45,21 +46,24 @@ MAG_FIELDS = dict(
 )
 
 
-def _between_conversion_and_store(monkeypatch: Any, change: Any) -> list[int]:
-    """Run ``change()`` once, right after the first conversion of the file returns."""
+def _between_read_and_conversion(monkeypatch: Any, change: Any) -> list[int]:
+    """Run ``change()`` once, right after the file's first piece was read (before the transaction)."""
+    import itertools
+
     import lcstore.services as services
 
-    convert = services.prepare_points
+    read = services.upload_read_chunks
     fired: list[int] = []
 
-    def hooked(*args: Any, **kwargs: Any) -> Any:
-        out = convert(*args, **kwargs)
+    def hooked(**kwargs: Any) -> Any:
+        pieces = read(**kwargs)
+        first = next(pieces)
         if not fired:
             fired.append(1)
             change()
-        return out
+        return itertools.chain([first], pieces)
 
-    monkeypatch.setattr(services, "prepare_points", hooked)
+    monkeypatch.setattr(services, "upload_read_chunks", hooked)
     return fired
 
 
@@ -82,7 +86,7 @@ def test_zero_point_changed_during_an_upload_is_the_one_its_points_use(
             instance=Band.objects.get(slug="r"), changes={"zero_point_jy": 3100.0}, user=curator
         )
 
-    fired = _between_conversion_and_store(monkeypatch, change)
+    fired = _between_read_and_conversion(monkeypatch, change)
     r = upload_file(client_for(contributor), OPTICAL_CSV, "r-night.csv", **MAG_FIELDS)
     assert r.status_code == 201, r.json()
     assert fired == [1] and Band.objects.get(slug="r").zero_point_jy == 3100.0
@@ -112,7 +116,7 @@ def test_source_position_changed_during_an_upload_is_the_one_its_times_use(
             user=curator,
         )
 
-    fired = _between_conversion_and_store(monkeypatch, change)
+    fired = _between_read_and_conversion(monkeypatch, change)
     r = upload_file(client_for(contributor), OPTICAL_CSV, "r-night.csv", **MAG_FIELDS)
     assert r.status_code == 201, r.json()
     assert fired == [1]
@@ -154,7 +158,7 @@ def _wait_until_another_backend_waits_on_a_lock(timeout_s: float = 20.0) -> bool
 def test_a_change_committed_while_the_upload_is_stored_waits_and_then_rederives_it(
     monkeypatch, catalogue, contributor, curator
 ):
-    """Another connection changes the zero point while the upload's transaction is writing.
+    """Another connection changes the zero point while the upload's transaction converts and writes.
 
     The change must wait for the upload (the curated rows it was converted with are
     locked) and then find it among the uploads to re-derive; without the lock the
@@ -166,7 +170,7 @@ def test_a_change_committed_while_the_upload_is_stored_waits_and_then_rederives_
     from lcstore.rederive import curated_change_apply
     from lcstore.services import UploadParams, upload_create
 
-    store = services.upload_store
+    stream = services.points_stream
     outcome: dict[str, Any] = {}
 
     def change_in_another_connection() -> None:
@@ -182,12 +186,13 @@ def test_a_change_committed_while_the_upload_is_stored_waits_and_then_rederives_
 
     other = threading.Thread(target=change_in_another_connection)
 
-    def hooked_store(**kwargs: Any) -> Any:
+    def hooked_stream(**kwargs: Any) -> Any:
+        # inside the upload's transaction: the curated rows are locked, the first piece converted
         other.start()
         outcome["change_waited"] = _wait_until_another_backend_waits_on_a_lock()
-        return store(**kwargs)
+        return stream(**kwargs)
 
-    monkeypatch.setattr(services, "upload_store", hooked_store)
+    monkeypatch.setattr(services, "points_stream", hooked_stream)
     upload = upload_create(
         uploader=contributor,
         data=OPTICAL_CSV.encode(),

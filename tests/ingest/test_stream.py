@@ -1,0 +1,197 @@
+"""An upload is parsed, converted and loaded in pieces (lcstore/services.py ``upload_create``).
+
+The pieces must give the same store as one piece: the same points, counts and
+provenance, and for a bad file the same error, with nothing stored. The pieces
+are made small here (``STREAM_ROWS``) so that a 30-row file crosses several.
+
+Anchors:
+- times given as MJD in TDB at the solar-system barycentre are BJD_TDB already,
+  so they are stored as given (BJD_TDB = JD_TDB at the barycentre; Eastman,
+  Siverd & Gaudi 2010, PASP 122, 935); values given in mJy are stored in mJy (the
+  canonical unit, DESIGN.md), so each stored point equals its file row exactly;
+- the stored file is a zlib stream (RFC 1950) whose inflated bytes have the
+  upload's SHA-256 (FIPS 180-4; Python's zlib and hashlib).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import zlib
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from lcstore.ingest.readers import read_upload, read_upload_chunks
+from lcstore.models import FluxPoint, Source, StoredFile, Upload
+from lcstore.services import UploadInvalid, UploadParams, upload_create
+
+PARAMS = UploadParams(
+    instrument="hollow-hill-1m",
+    value_unit="mJy",
+    time_format="mjd",
+    time_scale="tdb",
+    time_reference="BARYCENTER",
+)
+
+
+def _rows(n: int = 30) -> pd.DataFrame:
+    rng = np.random.default_rng(6)
+    return pd.DataFrame(
+        {
+            "time": np.round(60000 + rng.uniform(0, 50, n), 6),
+            "flux": np.round(rng.uniform(1, 5, n), 4),
+            "err": np.where(np.arange(n) % 7 == 3, np.nan, 0.05),
+            "limit": np.arange(n) % 9 == 4,
+            "source": np.where(np.arange(n) % 3 == 0, "tarn-7", "brook-2"),
+            "band": np.where(np.arange(n) % 2 == 0, "r", "v"),
+        }
+    )
+
+
+def _csv(df: pd.DataFrame) -> bytes:
+    buf = io.StringIO()
+    buf.write("# invented test night, two sources and two bands\n")
+    df.to_csv(buf, index=False, na_rep="", lineterminator="\n")
+    return buf.getvalue().encode()
+
+
+@pytest.fixture
+def two_sources(catalogue: dict[str, Any]) -> dict[str, Any]:
+    Source.objects.create(slug="brook-2", name="Brook 2", ra=210.0, dec=-40.0)
+    return catalogue
+
+
+def _columns() -> dict[str, str]:
+    return {
+        "time": "time",
+        "value": "flux",
+        "error": "err",
+        "upper_limit": "limit",
+        "source": "source",
+        "band": "band",
+    }
+
+
+@pytest.mark.parametrize(
+    "text",
+    [
+        # comments and blank lines among the data, a header
+        "t,v\n1,2.5\n# note\n2,3.5\n\n3,4.5\n4,5.5\n5,6.5\n6,7.5\n7,8.5\n",
+        # blanks as the delimiter, no header, names from the comment above the data
+        "# t v\n1 2.5\n2 3.5\n3 4.5\n4 5.5\n5 6.5\n6 7.5\n7 8.5\n",
+        # semicolons with decimal commas
+        "t;v\n1;2,5\n2;3,5\n3;4,5\n4;5,5\n5;6,5\n6;7,5\n7;8,5\n",
+    ],
+)
+def test_the_pieces_of_a_text_file_are_the_whole_file_read_at_once(text: str) -> None:
+    data = text.encode()
+    whole = read_upload(data, filename="f.csv")
+    pieces = list(read_upload_chunks(data, filename="f.csv", chunk_rows=3))
+    assert [len(p) for p in pieces] == [3, 3, 1]
+    joined = pd.concat([p.columns for p in pieces], ignore_index=True)
+    pd.testing.assert_frame_equal(joined, whole.columns)
+    np.testing.assert_array_equal(
+        np.concatenate([p.row_numbers for p in pieces]), whole.row_numbers
+    )
+    assert all(p.meta == whole.meta and p.units == whole.units for p in pieces)
+
+
+def test_a_json_file_is_read_whole_and_sliced() -> None:
+    data = b'{"columns": {"t": [1, 2, 3, 4, 5], "v": [1.5, 2.5, 3.5, 4.5, 5.5]}}'
+    whole = read_upload(data, filename="f.json")
+    pieces = list(read_upload_chunks(data, filename="f.json", chunk_rows=2))
+    assert [len(p) for p in pieces] == [2, 2, 1]
+    pd.testing.assert_frame_equal(
+        pd.concat([p.columns for p in pieces], ignore_index=True), whole.columns
+    )
+
+
+@pytest.mark.django_db
+def test_an_upload_in_pieces_stores_what_one_piece_stores(
+    two_sources: dict[str, Any], contributor: Any, monkeypatch: Any
+) -> None:
+    import lcstore.services as services
+
+    df = _rows()
+    data = _csv(df)
+    params = UploadParams(**{**PARAMS.__dict__, "columns": _columns()})
+    monkeypatch.setattr(services, "STREAM_ROWS", 4)
+    upload = upload_create(uploader=contributor, data=data, file_name="night.csv", params=params)
+
+    # Every row is stored exactly as written (TDB at the barycentre, mJy: no conversion).
+    stored = pd.DataFrame(
+        FluxPoint.objects.filter(upload_id=upload.pk)
+        .order_by("source__slug", "band__slug", "t", "id")
+        .values("t", "value", "error", "upper_limit", "source__slug", "band__slug")
+    )
+    expected = df.sort_values(["source", "band", "time"], kind="stable").reset_index(drop=True)
+    np.testing.assert_array_equal(stored["t"], expected["time"])
+    np.testing.assert_array_equal(stored["value"], expected["flux"])
+    np.testing.assert_array_equal(stored["error"].astype(float), expected["err"])
+    np.testing.assert_array_equal(stored["upper_limit"], expected["limit"])
+    assert list(stored["source__slug"]) == list(expected["source"])
+    assert list(stored["band__slug"]) == list(expected["band"])
+
+    # The counts and provenance are the file's, not the last piece's.
+    upload.refresh_from_db()
+    assert (upload.n_rows, upload.n_points) == (30, 30)
+    assert upload.n_upper_limits == int(df["limit"].sum())
+    assert (upload.time_min, upload.time_max) == (df["time"].min(), df["time"].max())
+    assert sorted(upload.sources.values_list("slug", flat=True)) == ["brook-2", "tarn-7"]
+    metadata = upload.parameters["metadata"]
+    assert sorted(metadata["sources"]) == ["brook-2", "tarn-7"]
+    assert sorted(metadata["bands"]) == ["r", "v"]
+    assert upload.warnings == []
+
+    # The file is kept as a zlib stream of exactly the bytes sent.
+    f = StoredFile.objects.get(pk=upload.file_id)
+    assert f.encoding == "zlib" and zlib.decompress(bytes(f.content)) == data
+    assert f.original() == data and f.size == len(data)
+    assert hashlib.sha256(f.original()).hexdigest() == upload.file_id
+
+
+@pytest.mark.django_db
+def test_a_bad_row_in_a_later_piece_is_reported_as_for_the_whole_file(
+    two_sources: dict[str, Any], contributor: Any, monkeypatch: Any
+) -> None:
+    import lcstore.services as services
+
+    df = _rows().astype({"flux": object})
+    df.loc[2, "flux"] = "bright"  # first piece
+    df.loc[26, "flux"] = "-"  # seventh piece
+    df.loc[27, "source"] = "nowhere-9"
+    data = _csv(df)
+    params = UploadParams(**{**PARAMS.__dict__, "columns": _columns()})
+
+    def problems(stream_rows: int) -> list[tuple[Any, Any, str]]:
+        monkeypatch.setattr(services, "STREAM_ROWS", stream_rows)
+        with pytest.raises(UploadInvalid) as info:
+            upload_create(uploader=contributor, data=data, file_name="night.csv", params=params)
+        return [(p.row, p.column, p.message) for p in info.value.problems]
+
+    in_pieces, at_once = problems(4), problems(10_000)
+    assert in_pieces == at_once
+    # file lines: 1 comment, 2 header, data from line 3
+    assert {row for row, _, _ in in_pieces} == {5, 29, 30}
+    assert FluxPoint.objects.count() == 0
+    assert Upload.objects.count() == 0 and StoredFile.objects.count() == 0
+
+
+@pytest.mark.django_db
+def test_a_file_that_does_not_shrink_is_kept_as_sent() -> None:
+    from django.db import transaction
+    from django.utils import timezone
+
+    from lcstore.ingest.load import stored_file_save
+
+    data = np.random.default_rng(3).bytes(4096)  # random bytes: zlib makes them longer
+    packed = zlib.compress(data, 1)
+    assert len(packed) > len(data)
+    sha = hashlib.sha256(data).hexdigest()
+    with transaction.atomic():
+        stored_file_save(sha256=sha, data=data, now=timezone.now(), packed=packed)
+    f = StoredFile.objects.get(pk=sha)
+    assert f.encoding == "" and bytes(f.content) == data and f.original() == data
