@@ -68,6 +68,7 @@ from __future__ import annotations
 
 import contextlib
 import csv
+import dataclasses
 import io
 import json
 import re
@@ -710,6 +711,108 @@ def _csv_chunks(plan: _CsvPlan, chunk_rows: int) -> Iterator[RawTable]:
         start = stop
 
 
+def _after_lines(text: bytes, start: int, k: int) -> int:
+    """The offset just past the ``k``-th newline from ``start`` (or the end of ``text``)."""
+    window = max(64 * 1024, 64 * k)
+    while True:
+        end = min(len(text), start + window)
+        view = np.frombuffer(text, dtype=np.uint8, count=end - start, offset=start)
+        nl = np.flatnonzero(view == 10)
+        if nl.size >= k:
+            return start + int(nl[k - 1]) + 1
+        if end == len(text):
+            return end
+        window *= 4
+
+
+def _csv_piece(
+    plan: _CsvPlan, text: bytes, start: int, stop: int, lines_before: int, n_fields: int
+) -> RawTable | None:
+    """Lines ``start:stop`` of a text file, checked and parsed with the decisions of ``plan``.
+
+    The checks of :func:`_csv_plan` that look at each line (blank, comment, field
+    count, open quote) are repeated on these lines only; a line that fails them is
+    a :class:`ReadError` (the caller reads the file whole to report it). None when
+    the lines hold no data.
+    """
+    arr = np.frombuffer(text, dtype=np.uint8, count=stop - start, offset=start)
+    starts, ends = _line_starts(arr)
+    solid = _first_solid(arr, starts, ends)
+    blank = solid >= ends
+    first_byte = arr[np.minimum(solid, max(arr.size - 1, 0))]
+    kept = np.flatnonzero(~blank & ~np.isin(first_byte, _COMMENT_BYTES))
+    if kept.size == 0:
+        return None
+    if kept.size == starts.size:
+        body = text[start:stop]
+    else:
+        keep_line = np.zeros(starts.size, dtype=bool)
+        keep_line[kept] = True
+        body = arr[np.repeat(keep_line, np.diff(np.append(starts, arr.size)))].tobytes()
+    if not body.endswith(b"\n"):
+        body += b"\n"
+    delimiter = plan.meta["delimiter"]
+    delimiter = _WHITESPACE if delimiter == "whitespace" else delimiter
+    counts, open_line = _field_counts(np.frombuffer(body, dtype=np.uint8), delimiter)
+    if open_line is not None or np.any(counts != n_fields):
+        raise ReadError("a line further down the file does not fit the first lines")
+    spaced = delimiter != _WHITESPACE and (
+        (delimiter + " ").encode() in body or (delimiter + "\t").encode() in body
+    )
+    options = {**plan.options, "skipinitialspace": spaced}
+    row_numbers = (kept + lines_before + 1).astype(np.int64)
+    return _csv_parse(dataclasses.replace(plan, options=options), body, row_numbers)
+
+
+def _csv_stream(
+    data: bytes, max_rows: int | None, max_columns: int | None, chunk_rows: int
+) -> Iterator[RawTable]:
+    """A text file in pieces, checking each line as its piece comes (see read_upload_chunks).
+
+    The encoding is checked on the whole file; the delimiter, decimal mark, header
+    and column names are decided on a head of at least ``chunk_rows`` lines that
+    holds the whole sample :func:`_csv_plan` uses, so they are the whole file's.
+    Every later line must then have the head's number of fields; a file where one
+    does not, or that goes over ``max_rows``, raises :class:`ReadError` at that
+    piece, and the whole-file reader names the problem.
+    """
+    text, encoding, fallback = _utf8_bytes(data)
+    if b"\n" not in text and b"\r" in text:  # old Mac line ends
+        text = text.replace(b"\r", b"\n")
+    if text.isspace():
+        raise ReadError("the file is empty")
+    head_lines = max(chunk_rows, 4 * _SAMPLE_LINES)
+    while True:
+        head = _after_lines(text, 0, head_lines)
+        plan = _csv_plan(text[:head], max_rows, max_columns)
+        header = 1 if plan.meta["header"] == "file" else 0
+        if head == len(text) or plan.row_numbers.size + header > _SAMPLE_LINES:
+            break
+        head_lines *= 4
+    if plan.unnamed:  # whether such a column is dropped depends on every row
+        table = _read_csv(data, max_rows, max_columns)
+        yield from _sliced(table, chunk_rows)
+        return
+    plan.meta["encoding"] = encoding
+    if fallback:
+        plan.meta["encoding_fallback"] = fallback
+    yield from _csv_chunks(plan, chunk_rows)
+    n_rows = plan.row_numbers.size
+    lines_before = text.count(b"\n", 0, head)
+    start = head
+    while start < len(text):
+        stop = _after_lines(text, start, chunk_rows)
+        piece = _csv_piece(plan, text, start, stop, lines_before, len(plan.names))
+        lines_before += text.count(b"\n", start, stop)
+        start = stop
+        if piece is None:
+            continue
+        n_rows += len(piece)
+        if max_rows is not None and n_rows > max_rows:
+            raise ReadError(f"the file has more than {max_rows} rows")
+        yield piece
+
+
 def _comment_header(
     text: bytes,
     solid: np.ndarray,
@@ -1188,12 +1291,6 @@ def read_upload_chunks(
         )
         yield from _sliced(table, chunk_rows)
         return
-    plan = _csv_plan(data, max_rows, max_columns)
-    if plan.unnamed:  # whether such a column is dropped depends on every row
-        table = _csv_parse(plan, plan.body, plan.row_numbers)
-        _check_names(table)
-        yield from _sliced(table, chunk_rows)
-        return
-    for piece in _csv_chunks(plan, chunk_rows):
+    for piece in _csv_stream(data, max_rows, max_columns, chunk_rows):
         _check_names(piece)
         yield piece

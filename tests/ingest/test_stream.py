@@ -38,6 +38,7 @@ PARAMS = UploadParams(
 
 
 def _rows(n: int = 30) -> pd.DataFrame:
+    """``n`` invented rows over two sources and two bands, some limits, some without errors."""
     rng = np.random.default_rng(6)
     return pd.DataFrame(
         {
@@ -99,6 +100,60 @@ def test_the_pieces_of_a_text_file_are_the_whole_file_read_at_once(text: str) ->
     assert all(p.meta == whole.meta and p.units == whole.units for p in pieces)
 
 
+def _long_text(n: int = 1200) -> str:
+    """A text file longer than the head that decides delimiter and header (400+ lines)."""
+    lines = ["# invented night log", "t;v;note"]
+    for i in range(n):
+        lines.append(f"{60000 + i};{i % 17},{i % 10};  n{i % 3}")
+        if i % 250 == 7:
+            lines.append("# a comment further down")
+        if i % 333 == 5:
+            lines.append("")
+    return "\n".join(lines)  # no newline after the last line
+
+
+def test_the_pieces_after_the_head_are_the_whole_file_read_at_once() -> None:
+    data = _long_text().encode("utf-8-sig")
+    whole = read_upload(data, filename="f.csv")
+    pieces = list(read_upload_chunks(data, filename="f.csv", chunk_rows=50))
+    assert len(pieces) > 10 and sum(len(p) for p in pieces) == len(whole) == 1200
+    joined = pd.concat([p.columns for p in pieces], ignore_index=True)
+    pd.testing.assert_frame_equal(joined, whole.columns)
+    np.testing.assert_array_equal(
+        np.concatenate([p.row_numbers for p in pieces]), whole.row_numbers
+    )
+    assert whole.meta["decimal"] == "," and whole.meta["encoding"] == "utf-8-sig"
+    assert all(p.meta["encoding"] == "utf-8-sig" for p in pieces)
+
+
+@pytest.mark.parametrize(
+    "damage",
+    [
+        lambda lines: lines.insert(900, "61009;1,5"),  # a field short
+        lambda lines: lines.insert(901, '61009;1,5;"open'),  # a quote left open
+    ],
+)
+def test_a_bad_line_after_the_head_stops_the_pieces(damage: Any) -> None:
+    from lcstore.ingest.readers import ReadError
+
+    lines = _long_text().split("\n")
+    damage(lines)
+    data = "\n".join(lines).encode()
+    with pytest.raises(ReadError):
+        read_upload(data, filename="f.csv")  # the reference answer names the line
+    with pytest.raises(ReadError):
+        list(read_upload_chunks(data, filename="f.csv", chunk_rows=50))
+
+
+def test_the_row_limit_holds_for_the_pieces() -> None:
+    from lcstore.ingest.readers import ReadError
+
+    data = _long_text().encode()
+    with pytest.raises(ReadError):
+        list(read_upload_chunks(data, filename="f.csv", chunk_rows=50, max_rows=1000))
+    assert sum(map(len, read_upload_chunks(data, filename="f.csv", max_rows=1200))) == 1200
+
+
 def test_a_json_file_is_read_whole_and_sliced() -> None:
     data = b'{"columns": {"t": [1, 2, 3, 4, 5], "v": [1.5, 2.5, 3.5, 4.5, 5.5]}}'
     whole = read_upload(data, filename="f.json")
@@ -115,10 +170,10 @@ def test_an_upload_in_pieces_stores_what_one_piece_stores(
 ) -> None:
     import lcstore.services as services
 
-    df = _rows()
+    df = _rows(600)  # past the 400-line head that fixes delimiter and header
     data = _csv(df)
     params = UploadParams(**{**PARAMS.__dict__, "columns": _columns()})
-    monkeypatch.setattr(services, "STREAM_ROWS", 4)
+    monkeypatch.setattr(services, "STREAM_ROWS", 40)
     upload = upload_create(uploader=contributor, data=data, file_name="night.csv", params=params)
 
     # Every row is stored exactly as written (TDB at the barycentre, mJy: no conversion).
@@ -137,7 +192,7 @@ def test_an_upload_in_pieces_stores_what_one_piece_stores(
 
     # The counts and provenance are the file's, not the last piece's.
     upload.refresh_from_db()
-    assert (upload.n_rows, upload.n_points) == (30, 30)
+    assert (upload.n_rows, upload.n_points) == (600, 600)
     assert upload.n_upper_limits == int(df["limit"].sum())
     assert (upload.time_min, upload.time_max) == (df["time"].min(), df["time"].max())
     assert sorted(upload.sources.values_list("slug", flat=True)) == ["brook-2", "tarn-7"]
@@ -154,15 +209,23 @@ def test_an_upload_in_pieces_stores_what_one_piece_stores(
 
 
 @pytest.mark.django_db
+@pytest.mark.parametrize(
+    "bad, lines",
+    [
+        # first piece, seventh piece, an unknown source, and past the 400-line head
+        ({2: ("flux", "bright"), 26: ("flux", "-"), 27: ("source", "nowhere-9"),
+          550: ("flux", "1,5")}, {5, 29, 30, 553}),
+        ({550: ("flux", "1,5")}, {553}),  # only past the head: the COPY had begun
+    ],
+)  # fmt: skip
 def test_a_bad_row_in_a_later_piece_is_reported_as_for_the_whole_file(
-    two_sources: dict[str, Any], contributor: Any, monkeypatch: Any
+    two_sources: dict[str, Any], contributor: Any, monkeypatch: Any, bad: dict, lines: set
 ) -> None:
     import lcstore.services as services
 
-    df = _rows().astype({"flux": object})
-    df.loc[2, "flux"] = "bright"  # first piece
-    df.loc[26, "flux"] = "-"  # seventh piece
-    df.loc[27, "source"] = "nowhere-9"
+    df = _rows(600).astype({"flux": object})
+    for row, (column, text) in bad.items():
+        df.loc[row, column] = text
     data = _csv(df)
     params = UploadParams(**{**PARAMS.__dict__, "columns": _columns()})
 
@@ -175,7 +238,7 @@ def test_a_bad_row_in_a_later_piece_is_reported_as_for_the_whole_file(
     in_pieces, at_once = problems(4), problems(10_000)
     assert in_pieces == at_once
     # file lines: 1 comment, 2 header, data from line 3
-    assert {row for row, _, _ in in_pieces} == {5, 29, 30}
+    assert {row for row, _, _ in in_pieces} == lines
     assert FluxPoint.objects.count() == 0
     assert Upload.objects.count() == 0 and StoredFile.objects.count() == 0
 
