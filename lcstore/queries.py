@@ -22,12 +22,12 @@ from typing import Any
 
 import numpy as np
 from django.db import DataError, connection, transaction
-from django.db.models import Q, QuerySet
+from django.db.models import Max, Q, QuerySet
 from django.utils import timezone
 
 from lcstore import roles
 from lcstore.dbrouter import read_connection
-from lcstore.models import FluxPoint, Source, Upload
+from lcstore.models import Band, FluxPoint, Source, Upload
 from lcstore.science.binning import PartialsOutOfRange
 
 __all__ = [
@@ -437,7 +437,10 @@ def bin_partials_for_source(
     """
     import psycopg
 
-    upload_ids = _visible_upload_ids(source=source, user=user, as_of=None)
+    visible = dict(
+        uploads_visible(user=user, source=source, as_of=None).values_list("pk", "instrument_id")
+    )
+    upload_ids = sorted(visible)
     if not upload_ids:
         return BinPartials(*(np.zeros(0, dtype=np.int64) for _ in _PARTIAL_INTS), *(np.zeros(0) for _ in _PARTIAL_FLOATS))  # fmt: skip
     where, params = _point_filters(
@@ -455,8 +458,25 @@ def bin_partials_for_source(
     # same sum. Elsewhere an unusable error (≤ 0, infinite, NaN) only makes the bin a
     # plain mean; an error of 0 stops the query (division by zero: PartialsOutOfRange).
     # Measured on 1e6 points, this is ~15% cheaper than a CASE that nulls such errors.
+    # An upload's points all carry its instrument, so the groups are (bin, upload, band),
+    # and upload and band travel packed in one int8 key while band ids fit in 20 bits:
+    # hashing two keys instead of four made the query 12 % faster on 1e6 points
+    # (best of 9 against the same table; 384 vs 435 ms). The instrument comes back
+    # from the upload.
+    band_bits = 20
+    max_band = Band.objects.aggregate(m=Max("pk"))["m"] or 0
+    if max_band < 2**band_bits:
+        inner = f"(upload_id << {band_bits}) | band_id AS key"
+        outer = f"key & {2**band_bits - 1}, k::int8, key >> {band_bits}, 0::int8"
+        group = "k, key"
+    else:
+        inner, outer, group = (
+            "band_id, upload_id",
+            "band_id, k::int8, upload_id, 0::int8",
+            "k, upload_id, band_id",
+        )
     sql = (
-        "SELECT band_id, k::int8, upload_id, instrument_id, "
+        f"SELECT {outer}, "
         f"count(*) {det}, count(*) FILTER (WHERE upper_limit), "
         "count(*) FILTER (WHERE NOT upper_limit AND error > 0 AND error < 'Infinity'::float8), "
         f"COALESCE(sum(1.0 / (error * error)) {det}, 0.0), "
@@ -464,10 +484,10 @@ def bin_partials_for_source(
         f"COALESCE(avg(value) {det}, 'NaN'), "
         f"COALESCE(var_pop(value) {det} * count(*) {det}, 'NaN'), "
         "COALESCE(min(value) FILTER (WHERE upper_limit), 'NaN') "
-        "FROM (SELECT band_id, upload_id, instrument_id, value, error, upper_limit, "
+        f"FROM (SELECT {inner}, value, error, upper_limit, "
         f"{_bin_index_sql(width, origin)} AS k "
         f"FROM {table} WHERE {' AND '.join(where)}) AS p "
-        "GROUP BY band_id, k, upload_id, instrument_id"
+        f"GROUP BY {group}"
     )
     conn = read_connection()
     try:
@@ -480,10 +500,14 @@ def bin_partials_for_source(
             rec = _fetch_postgresql(sql, params, dtype=_PARTIALS_DTYPE, conn=conn)
     except (DataError, psycopg.errors.DataError) as exc:
         raise PartialsOutOfRange(str(exc)) from exc
-    return BinPartials(
+    partials = BinPartials(
         **{name: rec[name].astype(np.int64) for name in _PARTIAL_INTS},
         **{name: rec[name].astype(float) for name in _PARTIAL_FLOATS},
     )
+    ids = np.array(upload_ids, dtype=np.int64)
+    instruments = np.array([visible[u] for u in upload_ids], dtype=np.int64)
+    partials.instrument_id = instruments[np.searchsorted(ids, partials.upload_id)]
+    return partials
 
 
 RAW_CSV_COLUMNS = ("band", "time", "value", "error", "upper_limit", "instrument", "upload")
