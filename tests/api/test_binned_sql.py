@@ -409,3 +409,20 @@ def test_sql_bins_treat_unusable_stored_errors_as_numpy_does(store, both, bad):
     assert rows[60010.0]["value"] == pytest.approx(2.5)
     assert rows[60010.0]["error"] == pytest.approx(scipy.stats.sem([2.0, 3.0]))
     assert rows[60011.0]["value"] == 4.0 and rows[60011.0]["error"] == pytest.approx(0.2)
+
+
+@pytest.mark.parametrize(
+    "query", ["bands=r&bin=1d", "bin=1d", "bands=r&bin=1d&instruments=fern-0p6"]
+)
+def test_sql_bins_with_a_band_id_past_the_packed_key(store, both, query):
+    """Band ids of 2^20 and more cannot share an int8 key with the upload id: the query
+    groups by three keys instead, and answers as numpy does (and as the packed key did)."""
+    from lcstore.models import Band
+
+    url = f"/api/v1/sources/tarn-7/lightcurve/?{query}"
+    packed, _ = both(store["ada"], url, "bins")
+    Band.objects.create(slug="far-id", name="Far id", kind="flux_density", pk=2**20 + 5)
+    fast, slow = both(store["ada"], url, "bins")
+    assert fast.status_code == slow.status_code == packed.status_code == 200, fast.content
+    _same_bins(fast.json(), slow.json())
+    _same_bins(fast.json(), packed.json())
