@@ -108,6 +108,7 @@ _EXTENSIONS = {
 }
 _SHOWN_PROBLEMS = 1000  # row problems listed in full; the rest are counted
 _SAMPLE_LINES = 100  # lines used to choose the CSV delimiter and header
+_HEAD_LINES = 20_000  # most lines planned and parsed before read_upload_chunks yields
 _COMMENT_BYTES = (ord("#"), ord("%"), ord("!"))
 _BLANK_BYTES = (ord(" "), ord("\t"), ord("\r"))
 _DELIMITERS = ("\t", ";", ",", "|")  # in order of preference; blanks are tried last
@@ -770,8 +771,9 @@ def _csv_stream(
     """A text file in pieces, checking each line as its piece comes (see read_upload_chunks).
 
     The encoding is checked on the whole file; the delimiter, decimal mark, header
-    and column names are decided on a head of at least ``chunk_rows`` lines that
-    holds the whole sample :func:`_csv_plan` uses, so they are the whole file's.
+    and column names are decided on a head (the first piece: up to ``chunk_rows``
+    and at most 20,000 lines, but at least 400) that holds the whole sample
+    :func:`_csv_plan` uses, so they are the whole file's.
     Every later line must then have the head's number of fields; a file where one
     does not, or that goes over ``max_rows``, raises :class:`ReadError` at that
     piece, and the whole-file reader names the problem.
@@ -781,7 +783,8 @@ def _csv_stream(
         text = text.replace(b"\r", b"\n")
     if text.isspace():
         raise ReadError("the file is empty")
-    head_lines = max(chunk_rows, 4 * _SAMPLE_LINES)
+    # A short first piece: nothing reaches the server before it is parsed and converted.
+    head_lines = max(min(chunk_rows, _HEAD_LINES), 4 * _SAMPLE_LINES)
     while True:
         head = _after_lines(text, 0, head_lines)
         plan = _csv_plan(text[:head], max_rows, max_columns)
