@@ -212,14 +212,12 @@ def _snapshot_used(snapshot: dict[str, dict], used: dict[str, list[int]]) -> dic
     return {key: dict(snapshot[key][pk] for pk in used[key] if pk in snapshot[key]) for key in used}
 
 
-def _metadata_snapshot(
-    instrument_id: int, source_ids: list[int], band_ids: list[int], *, lock: bool = False
-) -> dict:
-    """The curated values of these records now, with their history ids (``lock``: share-locked)."""
+def _metadata_snapshot(instrument_id: int, source_ids: list[int], band_ids: list[int]) -> dict:
+    """The curated values of these records now, with their history ids."""
     used = {"instrument": [instrument_id], "sources": source_ids, "bands": band_ids}
     snapshot = {}
     for key, (model, fields) in _SNAPSHOT_FIELDS.items():
-        objs, history = _records(model, model.objects.filter(pk__in=used[key]), lock=lock)
+        objs, history = _records(model, model.objects.filter(pk__in=used[key]), lock=False)
         snapshot[key] = _snap_of(objs, history, fields)
     return _snapshot_used(snapshot, used)
 
@@ -252,19 +250,8 @@ def upload_prepare(
     *, raw: RawTable, params: UploadParams
 ) -> tuple[InstrumentRecord, PreparedPoints]:
     """Check and convert a read file with the catalogue as it is now (no writes)."""
-    instrument, prepared, _ = _prepare(raw=raw, params=params)
-    return instrument, prepared
-
-
-def _prepare(
-    *, raw: RawTable, params: UploadParams, lock: bool = False
-) -> tuple[InstrumentRecord, PreparedPoints, dict]:
-    """:func:`upload_prepare`, plus the snapshot (``parameters["metadata"]`` form) of the
-    curated records the points were converted with; ``lock`` share-locks them first."""
-    catalogue = _catalogue(params, lock=lock)
-    instrument, snapshot = catalogue[0], catalogue[3]
-    prepared = _convert(raw, params, catalogue)
-    return instrument, prepared, _snapshot_used(snapshot, _used_ids(instrument, prepared))
+    catalogue = _catalogue(params)
+    return catalogue[0], _convert(raw, params, catalogue)
 
 
 def _convert(
@@ -414,10 +401,15 @@ def upload_store(
     upload.sources.set(source_ids)
     points_load(prepared, instrument_id=instrument.id, upload_id=upload.pk)
     if supersedes is not None:
-        supersedes.status = UploadStatus.SUPERSEDED
-        supersedes.superseded_at = now
-        supersedes.save(update_fields=["status", "superseded_at"])
+        _retire(supersedes, now)
     return upload
+
+
+def _retire(old: Upload, now: dt.datetime) -> None:
+    """Mark ``old`` superseded at ``now`` (its points stay, hidden after that instant)."""
+    old.status = UploadStatus.SUPERSEDED
+    old.superseded_at = now
+    old.save(update_fields=["status", "superseded_at"])
 
 
 #: Rows per piece of a streamed upload (see :func:`upload_create`).
@@ -609,14 +601,15 @@ def upload_create(
                     now=now,
                 )
             if old is not None:
-                old.status = UploadStatus.SUPERSEDED
-                old.superseded_at = now
-                old.save(update_fields=["status", "superseded_at"])
+                _retire(old, now)
         except (ReadError, UploadInvalid, _PiecesDisagree):
-            # The reference answer: the file read and converted as a whole (which raises
-            # UploadInvalid naming every problem, unless only a piece's types were odd).
+            # The reference answer: the file read and converted as a whole, with the same
+            # locked catalogue (which raises UploadInvalid naming every problem, unless only
+            # a piece's types were odd).
             raw = whole()
-            instrument, prepared, used = _prepare(raw=raw, params=params)
+            instrument, snapshot = catalogue[0], catalogue[3]
+            prepared = _convert(raw, params, catalogue)
+            used = _snapshot_used(snapshot, _used_ids(instrument, prepared))
             upload = upload_store(
                 uploader=uploader,
                 data=data,
