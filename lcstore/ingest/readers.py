@@ -536,6 +536,39 @@ class _CsvPlan:
     meta: dict[str, Any]
 
 
+def _line_kinds(
+    arr: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Line starts and ends, first non-blank byte, comment mask and data-line indices."""
+    starts, ends = _line_starts(arr)
+    solid = _first_solid(arr, starts, ends)
+    blank = solid >= ends
+    first_byte = arr[np.minimum(solid, max(arr.size - 1, 0))]
+    comment = ~blank & np.isin(first_byte, _COMMENT_BYTES)
+    kept = np.flatnonzero(~blank & ~comment)
+    return starts, ends, solid, comment, kept
+
+
+def _kept_bytes(
+    text: bytes, offset: int, arr: np.ndarray, starts: np.ndarray, kept: np.ndarray
+) -> bytes:
+    """The lines ``kept`` of ``arr`` (= ``text`` from ``offset``), each ending with a newline."""
+    if kept.size == starts.size - kept[0] and np.all(np.diff(kept) == 1):
+        body = text[offset + int(starts[kept[0]]) : offset + arr.size]  # one run to the end
+    else:
+        keep_line = np.zeros(starts.size, dtype=bool)
+        keep_line[kept] = True
+        body = arr[np.repeat(keep_line, np.diff(np.append(starts, arr.size)))].tobytes()
+    return body if body.endswith(b"\n") else body + b"\n"
+
+
+def _spaced(body: bytes, delimiter: str) -> bool:
+    """Whether a field follows a delimiter with blanks (the parser then skips them, at a cost)."""
+    return delimiter != _WHITESPACE and (
+        (delimiter + " ").encode() in body or (delimiter + "\t").encode() in body
+    )
+
+
 def _csv_plan(data: bytes, max_rows: int | None, max_columns: int | None) -> _CsvPlan:
     """Every check that needs the whole file: encoding, delimiter, header, field counts."""
     text, encoding, fallback = _utf8_bytes(data)
@@ -544,12 +577,7 @@ def _csv_plan(data: bytes, max_rows: int | None, max_columns: int | None) -> _Cs
     if text.isspace():
         raise ReadError("the file is empty")
     arr = np.frombuffer(text, dtype=np.uint8)
-    starts, ends = _line_starts(arr)
-    solid = _first_solid(arr, starts, ends)
-    blank = solid >= ends
-    first_byte = arr[np.minimum(solid, arr.size - 1)]
-    comment = ~blank & np.isin(first_byte, _COMMENT_BYTES)
-    kept = np.flatnonzero(~blank & ~comment)
+    starts, ends, solid, comment, kept = _line_kinds(arr)
     comment_lines = np.flatnonzero(comment)
     comments = [
         text[solid[i] : ends[i]].decode("utf-8").lstrip("#%!").strip() for i in comment_lines[:1000]
@@ -571,15 +599,7 @@ def _csv_plan(data: bytes, max_rows: int | None, max_columns: int | None) -> _Cs
             decimal = ","
 
     # Only the header and data lines go to the parser.
-    lengths = np.diff(np.append(starts, arr.size))
-    if kept.size == starts.size - kept[0] and np.all(np.diff(kept) == 1):
-        body = text[starts[kept[0]] :]
-    else:
-        keep_line = np.zeros(starts.size, dtype=bool)
-        keep_line[kept] = True
-        body = arr[np.repeat(keep_line, lengths)].tobytes()
-    if not body.endswith(b"\n"):
-        body += b"\n"
+    body = _kept_bytes(text, 0, arr, starts, kept)
     line_numbers = kept + 1
     n_rows = kept.size - (1 if has_header else 0)
     if n_rows == 0:
@@ -619,9 +639,7 @@ def _csv_plan(data: bytes, max_rows: int | None, max_columns: int | None) -> _Cs
     if has_header:
         body = body[body.index(b"\n") + 1 :]
     # Skipping blanks after a delimiter costs the parser a third more time: only when needed.
-    spaced = delimiter != _WHITESPACE and (
-        (delimiter + " ").encode() in body or (delimiter + "\t").encode() in body
-    )
+    spaced = _spaced(body, delimiter)
     meta: dict[str, Any] = {
         "delimiter": "whitespace" if delimiter == _WHITESPACE else delimiter,
         "decimal": decimal,
@@ -737,30 +755,16 @@ def _csv_piece(
     the lines hold no data.
     """
     arr = np.frombuffer(text, dtype=np.uint8, count=stop - start, offset=start)
-    starts, ends = _line_starts(arr)
-    solid = _first_solid(arr, starts, ends)
-    blank = solid >= ends
-    first_byte = arr[np.minimum(solid, max(arr.size - 1, 0))]
-    kept = np.flatnonzero(~blank & ~np.isin(first_byte, _COMMENT_BYTES))
+    starts, _, _, _, kept = _line_kinds(arr)
     if kept.size == 0:
         return None
-    if kept.size == starts.size:
-        body = text[start:stop]
-    else:
-        keep_line = np.zeros(starts.size, dtype=bool)
-        keep_line[kept] = True
-        body = arr[np.repeat(keep_line, np.diff(np.append(starts, arr.size)))].tobytes()
-    if not body.endswith(b"\n"):
-        body += b"\n"
+    body = _kept_bytes(text, start, arr, starts, kept)
     delimiter = plan.meta["delimiter"]
     delimiter = _WHITESPACE if delimiter == "whitespace" else delimiter
     counts, open_line = _field_counts(np.frombuffer(body, dtype=np.uint8), delimiter)
     if open_line is not None or np.any(counts != n_fields):
         raise ReadError("a line further down the file does not fit the first lines")
-    spaced = delimiter != _WHITESPACE and (
-        (delimiter + " ").encode() in body or (delimiter + "\t").encode() in body
-    )
-    options = {**plan.options, "skipinitialspace": spaced}
+    options = {**plan.options, "skipinitialspace": _spaced(body, delimiter)}
     row_numbers = (kept + lines_before + 1).astype(np.int64)
     return _csv_parse(dataclasses.replace(plan, options=options), body, row_numbers)
 
