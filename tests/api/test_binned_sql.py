@@ -415,8 +415,10 @@ def test_sql_bins_treat_unusable_stored_errors_as_numpy_does(store, both, bad):
     "query", ["bands=r&bin=1d", "bin=1d", "bands=r&bin=1d&instruments=fern-0p6"]
 )
 def test_sql_bins_with_a_band_id_past_the_packed_key(store, both, query):
-    """Band ids of 2^20 and more cannot share an int8 key with the upload id: the query
-    groups by three keys instead, and answers as numpy does (and as the packed key did)."""
+    """Band ids of 2^20 and more cannot share an int8 key with the upload id: a query that
+    may meet one (no band named: every band of the source) groups by three keys instead;
+    one naming only small ids keeps the packed key. Both answer as numpy does (and as
+    before the band existed)."""
     from lcstore.models import Band
 
     url = f"/api/v1/sources/tarn-7/lightcurve/?{query}"
