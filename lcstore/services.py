@@ -516,8 +516,9 @@ def _stream_store(
             n_upper += int(prepared.upper_limit.sum())
             t_min = min(t_min, float(prepared.t.min()))
             t_max = max(t_max, float(prepared.t.max()))
-            source_ids.update(int(i) for i in np.unique(prepared.source_id))
-            band_ids.update(int(i) for i in np.unique(prepared.band_id))
+            ids = _used_ids(instrument, prepared)
+            source_ids.update(ids["sources"])
+            band_ids.update(ids["bands"])
             warnings += [w for w in prepared.warnings if w not in warnings]
             raw = next(pieces, None)
             if raw is None:
@@ -553,8 +554,9 @@ def upload_create(
 ) -> Upload:
     """Read, check, convert and store one file, all or nothing.
 
-    The file's whole-file checks (encoding, delimiter, header, field counts, limits)
-    and the parse of its first piece run before the transaction. In the transaction
+    The encoding check, the checks of the file's head (delimiter, header, names,
+    field counts) and the parse of its first piece run before the transaction; the
+    lines of each later piece are checked as it comes. In the transaction
     the curated records a conversion may use are share-locked first (a curated
     change waits for the upload, then re-derives it), so the points always match
     ``parameters["metadata"]``. Then the file is parsed and converted in pieces of

@@ -178,9 +178,9 @@ def points_stream(
     (psycopg's ``QueuedLibpqWriter``) while the caller prepares the next piece, so
     the server writes rows while Python parses and converts. The references of
     every piece are checked (:func:`references_check`, one query per table) once
-    the COPY has ended, in the same transaction. An exception inside the block aborts the COPY; run it
-    in a transaction (or savepoint) that the exception rolls back. Elsewhere each
-    piece is a :func:`points_load`.
+    the COPY has ended, in the same transaction. An exception inside the block
+    aborts the COPY; run it in a transaction (or savepoint) that the exception
+    rolls back. Elsewhere each piece is a :func:`points_load`.
     """
     if connection.vendor != "postgresql":
 
