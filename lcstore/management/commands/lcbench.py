@@ -988,11 +988,14 @@ class Bench:
                 repeats,
             )
 
+        def measure_alone(label: str) -> tuple[Timing, Timing]:
+            self.reset_points()
+            for k in range(ISO_SLICES):
+                load_target(k)
+            return measure(label)
+
         self.say(f"isolation: {n:,} points of one source in {ISO_SLICES} uploads, alone")
-        self.reset_points()
-        for k in range(ISO_SLICES):
-            load_target(k)
-        small = measure("alone")
+        small = measure_alone("alone")
 
         self.say(f"isolation: generating {n_others:,} points of {N_OTHER_SOURCES} other sources")
         others = [bench.curve_arrays(n, seed=1000 + s) for s in range(N_OTHER_SOURCES)]
@@ -1026,10 +1029,7 @@ class Bench:
         # The two states cannot be measured alternately, and over the minute the big table
         # takes to load these machines drift by more than the goal: the source alone is
         # measured again afterwards, and the big table is compared with the mean of the two.
-        self.reset_points()
-        for k in range(ISO_SLICES):
-            load_target(k)
-        again = measure("alone, again")
+        again = measure_alone("alone, again")
         alone = (small[0].best + again[0].best) / 2
         alone_sql = (small[1].best + again[1].best) / 2
         self.rows.append(
