@@ -2,7 +2,9 @@
 
 The pieces must give the same store as one piece: the same points, counts and
 provenance, and for a bad file the same error, with nothing stored. The pieces
-are made small here (``STREAM_ROWS``) so that a 30-row file crosses several.
+are made small here (``STREAM_ROWS``, ``chunk_rows``) so that a file of a few
+hundred rows crosses several, and runs past the 400-line head that fixes the
+delimiter, decimal mark and header.
 
 Anchors:
 - times given as MJD in TDB at the solar-system barycentre are BJD_TDB already,
