@@ -374,6 +374,19 @@ def _utf8_bytes(data: bytes) -> tuple[bytes, str, str | None]:
     raise ReadError("the file is not readable text")  # pragma: no cover - latin-1 decodes any byte
 
 
+def _clean_utf8(text: bytes) -> bool:
+    """Whether ``text`` is UTF-8 with no control bytes: what :func:`_utf8_bytes` passes as is."""
+    if len(text.translate(None, _CONTROL_BYTES)) < len(text):
+        return False
+    if text.isascii():
+        return True
+    try:
+        text.decode("utf-8")
+    except UnicodeDecodeError:
+        return False
+    return True
+
+
 def _utf8_text(data: bytes, what: str) -> str:
     """Strict UTF-8 text (formats whose standard says UTF-8)."""
     if data.startswith(b"\xef\xbb\xbf"):
@@ -774,15 +787,24 @@ def _csv_stream(
 ) -> Iterator[RawTable]:
     """A text file in pieces, checking each line as its piece comes (see read_upload_chunks).
 
-    The encoding is checked on the whole file; the delimiter, decimal mark, header
-    and column names are decided on a head (the first piece: up to ``chunk_rows``
-    and at most 20,000 lines, but at least 400) that holds the whole sample
-    :func:`_csv_plan` uses, so they are the whole file's.
-    Every later line must then have the head's number of fields; a file where one
-    does not, or that goes over ``max_rows``, raises :class:`ReadError` at that
-    piece, and the whole-file reader names the problem.
+    The delimiter, decimal mark, header and column names are decided on a head
+    (the first piece: up to ``chunk_rows`` and at most 20,000 lines, but at least
+    400) that holds the whole sample :func:`_csv_plan` uses, so they are the
+    whole file's. The encoding is checked on the head, then on each later piece
+    as it comes; a file in UTF-16, or whose head is not plain UTF-8, is decoded
+    whole first (a fallback such as cp1252 holds for the whole file).
+    Every later piece must then be UTF-8 without control bytes, and each line must
+    have the head's number of fields; a file where one does not, or that goes over
+    ``max_rows``, raises :class:`ReadError` at that piece, and the whole-file
+    reader names the problem (or decodes the file with its fallback).
     """
-    text, encoding, fallback = _utf8_bytes(data)
+    checked = data.startswith((b"\xff\xfe", b"\xfe\xff"))  # UTF-16: decoded whole
+    if checked:
+        text, encoding, fallback = _utf8_bytes(data)
+    elif data.startswith(b"\xef\xbb\xbf"):
+        text, encoding, fallback = data[3:], "utf-8-sig", None
+    else:
+        text, encoding, fallback = data, "utf-8", None
     if b"\n" not in text and b"\r" in text:  # old Mac line ends
         text = text.replace(b"\r", b"\n")
     if text.isspace():
@@ -791,6 +813,13 @@ def _csv_stream(
     head_lines = max(min(chunk_rows, _HEAD_LINES), 4 * _SAMPLE_LINES)
     while True:
         head = _after_lines(text, 0, head_lines)
+        if not checked and not _clean_utf8(text[:head]):
+            # The whole file's decoding decides (a fallback, or the offset of a bad byte).
+            text, encoding, fallback = _utf8_bytes(data)
+            if b"\n" not in text and b"\r" in text:
+                text = text.replace(b"\r", b"\n")
+            checked = True
+            continue
         plan = _csv_plan(text[:head], max_rows, max_columns)
         header = 1 if plan.meta["header"] == "file" else 0
         if head == len(text) or plan.row_numbers.size + header > _SAMPLE_LINES:
@@ -809,6 +838,8 @@ def _csv_stream(
     start = head
     while start < len(text):
         stop = _after_lines(text, start, chunk_rows)
+        if not checked and not _clean_utf8(text[start:stop]):
+            raise ReadError("the text further down is not UTF-8, or holds control bytes")
         piece = _csv_piece(plan, text, start, stop, lines_before, len(plan.names))
         lines_before += text.count(b"\n", start, stop)
         start = stop
@@ -1281,10 +1312,10 @@ def read_upload_chunks(
 ) -> Iterator[RawTable]:
     """The file of :func:`read_upload` as tables of at most ``chunk_rows`` rows, in file order.
 
-    Delimited text is checked as a whole first (encoding, delimiter, header, field
-    counts, limits), then parsed one run of lines at a time, so a caller can work
-    on the first rows while the rest are parsed; other formats are read whole and
-    sliced. Each piece keeps the file's row numbers. A piece's column types are
+    Delimited text is planned on its first lines (encoding, delimiter, header,
+    field counts), then checked (encoding, field counts, row limit) and parsed
+    one run of lines at a time, so a caller can work on the first rows while the
+    rest are read; other formats are read whole and sliced. Each piece keeps the file's row numbers. A piece's column types are
     inferred from its own rows, so a caller that finds a problem in a piece (a
     :class:`ReadError` here, or a row problem later) should read the file whole
     (:func:`read_upload`) to report it: that is the reference answer, and the

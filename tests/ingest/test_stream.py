@@ -147,6 +147,34 @@ def test_a_bad_line_after_the_head_stops_the_pieces(damage: Any) -> None:
         list(read_upload_chunks(data, filename="f.csv", chunk_rows=50))
 
 
+def test_text_past_the_head_that_is_not_utf8_stops_the_pieces() -> None:
+    """The head is decoded alone; a later piece that is not plain UTF-8 sends the caller
+    to the whole-file reader, which decodes every line with one fallback (cp1252 here:
+    0xE9 is "é" in Windows-1252, Python's codec table)."""
+    from lcstore.ingest.readers import ReadError
+
+    lines = _long_text().split("\n")
+    lines.insert(900, "# observer's note: caf\u00e9")
+    data = "\n".join(lines).encode("cp1252")
+    with pytest.raises(ReadError):
+        list(read_upload_chunks(data, filename="f.csv", chunk_rows=50))
+    whole = read_upload(data, filename="f.csv")
+    assert whole.meta["encoding_fallback"] == "cp1252" and len(whole) == 1200
+
+
+def test_a_head_that_is_not_utf8_decodes_the_whole_file_first() -> None:
+    lines = _long_text().split("\n")
+    lines.insert(3, "# observer's note: caf\u00e9")
+    data = "\n".join(lines).encode("cp1252")
+    whole = read_upload(data, filename="f.csv")
+    pieces = list(read_upload_chunks(data, filename="f.csv", chunk_rows=50))
+    pd.testing.assert_frame_equal(
+        pd.concat([p.columns for p in pieces], ignore_index=True), whole.columns
+    )
+    assert whole.meta["encoding_fallback"] == whole.meta["encoding"] == "cp1252"
+    assert all(p.meta["encoding_fallback"] == p.meta["encoding"] == "cp1252" for p in pieces)
+
+
 def test_the_row_limit_holds_for_the_pieces() -> None:
     from lcstore.ingest.readers import ReadError
 
@@ -243,6 +271,38 @@ def test_a_bad_row_in_a_later_piece_is_reported_as_for_the_whole_file(
     assert {row for row, _, _ in in_pieces} == lines
     assert FluxPoint.objects.count() == 0
     assert Upload.objects.count() == 0 and StoredFile.objects.count() == 0
+
+
+@pytest.mark.django_db
+def test_an_encoding_problem_past_the_head_is_answered_as_for_the_whole_file(
+    two_sources: dict[str, Any], contributor: Any, monkeypatch: Any
+) -> None:
+    """A Windows-1252 byte past the head: stored with the whole file's fallback, as in one
+    piece. A control byte there: the whole file's error (with its offset), nothing stored."""
+    import lcstore.services as services
+
+    params = UploadParams(**{**PARAMS.__dict__, "columns": _columns()})
+    lines = _csv(_rows(600)).decode().split("\n")
+    lines.insert(560, "# observer's note: caf\u00e9")
+    latin = "\n".join(lines).encode("cp1252")
+    monkeypatch.setattr(services, "STREAM_ROWS", 40)
+    upload = upload_create(uploader=contributor, data=latin, file_name="n.csv", params=params)
+    assert upload.n_points == 600
+    assert upload.warnings == ["file was not UTF-8; read as cp1252"]
+    assert StoredFile.objects.get(pk=upload.file_id).original() == latin
+
+    binary = latin.replace(b"caf\xe9", b"caf\x01")
+
+    def problems(stream_rows: int) -> list[tuple[Any, Any, str]]:
+        monkeypatch.setattr(services, "STREAM_ROWS", stream_rows)
+        with pytest.raises(UploadInvalid) as info:
+            upload_create(uploader=contributor, data=binary, file_name="b.csv", params=params)
+        return [(p.row, p.column, p.message) for p in info.value.problems]
+
+    in_pieces = problems(40)
+    assert in_pieces == problems(10_000)
+    assert "byte 0x01 at offset" in in_pieces[0][2]
+    assert Upload.objects.count() == 1 and FluxPoint.objects.count() == 600
 
 
 @pytest.mark.django_db
