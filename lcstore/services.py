@@ -15,7 +15,7 @@ from django.db import connection, transaction
 from django.db.models import Max
 from django.utils import timezone
 
-from lcstore import roles
+from lcstore import roles, timing
 from lcstore.ingest.load import points_load, points_stream, stored_file_save
 from lcstore.ingest.pipeline import (
     BandRecord,
@@ -502,6 +502,7 @@ def _stream_store(
         **_point_stats(n_rows=0, n_points=0, n_upper_limits=0, time_min=0.0, time_max=0.0),
         warnings=[],
     )
+    timing.mark("lock")
     n_rows = n_points = n_upper = 0
     t_min, t_max = np.inf, -np.inf
     source_ids: set[int] = set()
@@ -532,6 +533,7 @@ def _stream_store(
             prepared = convert(raw)
         # Python is idle from here until the COPY ends: compress the file meanwhile.
         packed = _PACKER.submit(zlib.compress, data, 1)
+    timing.mark("copy")
     if not StoredFile.objects.filter(pk=sha256).exists():
         stored_file_save(sha256=sha256, data=data, now=now, packed=packed.result())
     used = {"instrument": [instrument.id], "sources": sorted(source_ids), "bands": sorted(band_ids)}
@@ -570,7 +572,9 @@ def upload_create(
     :data:`STREAM_ROWS` rows, each sent into one ``COPY`` while the next is
     prepared (:func:`lcstore.ingest.load.points_stream`). At the first piece with a
     problem the load is rolled back and the file is read and converted whole, so
-    the error lists every problem exactly as for a file of one piece.
+    the error lists every problem exactly as for a file of one piece. The stages
+    are marked for the ``Server-Timing`` header (:mod:`lcstore.timing`): head,
+    lock, copy (or whole), store.
 
     Raises :class:`UploadInvalid` (every problem found, nothing stored) or
     :class:`UploadConflict` (same bytes already accepted for the same source).
@@ -587,7 +591,7 @@ def upload_create(
     except ReadError:
         pieces = iter([whole()])  # raises UploadInvalid, naming every problem
     sha256 = checksum.result()
-
+    timing.mark("head")
     with transaction.atomic():
         # Curated rows first, then the checksum: a curated change re-deriving an upload of
         # the same bytes holds its row and then asks for the checksum lock.
@@ -633,10 +637,12 @@ def upload_create(
                 now=now,
                 metadata=used,
             )
+            timing.mark("whole")
         if not params.source:
             ids = list(upload.sources.values_list("pk", flat=True))
             _conflict_check(sha256, ids, uploader, upload.pk)
-        return upload
+    timing.mark("store")
+    return upload
 
 
 def upload_read_chunks(

@@ -6,7 +6,7 @@ from typing import Any
 
 from django.conf import settings
 from django.http import HttpResponse
-from drf_spectacular.utils import extend_schema
+from drf_spectacular.utils import OpenApiParameter, extend_schema
 from rest_framework import mixins, serializers, status, viewsets
 from rest_framework.decorators import action
 from rest_framework.parsers import FormParser, JSONParser
@@ -18,6 +18,7 @@ from api.parsers import CompleteMultiPartParser
 from api.permissions import ContributorsUpload
 from api.serializers import ColumnsMappingField, UploadSerializer
 from api.throttles import ReadThrottle, WriteScopedThrottle
+from lcstore import timing
 from lcstore.ingest.readers import FORMATS
 from lcstore.models import Upload
 from lcstore.queries import embargo_filter
@@ -78,8 +79,31 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
         )
         return qs.filter(embargo_filter(self.request.user))
 
-    @extend_schema(request={"multipart/form-data": UploadInput}, responses={201: UploadSerializer})
+    @extend_schema(
+        request={"multipart/form-data": UploadInput},
+        responses={201: UploadSerializer},
+        parameters=[
+            OpenApiParameter(
+                "Server-Timing",
+                str,
+                OpenApiParameter.HEADER,
+                response=[201],
+                description="W3C Server Timing: milliseconds of each stage (body, head, lock, "
+                "copy, store, answer) and the total",
+            )
+        ],
+    )
     def create(self, request: Request, *args: Any, **kwargs: Any) -> Response:
+        # The answer says where the time went (Server-Timing, lcstore/timing.py): body
+        # (received and parsed), head, lock, copy, store (lcstore.services.upload_create),
+        # answer.
+        with timing.recording() as marks:
+            response = self._create(request)
+            timing.mark("answer")
+        response["Server-Timing"] = timing.header(marks)
+        return response
+
+    def _create(self, request: Request) -> Response:
         limit = settings.LCSTORE_MAX_UPLOAD_MB * 1024 * 1024
         try:
             declared = int(request.META.get("CONTENT_LENGTH") or 0)
@@ -106,6 +130,7 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.G
                 status=status.HTTP_413_REQUEST_ENTITY_TOO_LARGE,
             )
         data = f.read()
+        timing.mark("body")
         params = UploadParams(
             instrument=d["instrument"],
             source=d.get("source") or None,

@@ -41,12 +41,10 @@ def _bjd_reference(jd_utc: np.ndarray) -> np.ndarray:
     return bjd.mjd
 
 
-def test_csv_upload_converts_vega_magnitudes_and_times(
-    catalogue, contributor, client_for, upload_file
-):
-    c = client_for(contributor)
-    r = upload_file(
-        c,
+def _upload_optical(client, upload_file, **fields):
+    """OPTICAL_CSV as a night of R magnitudes of tarn-7, plus ``fields``."""
+    return upload_file(
+        client,
         OPTICAL_CSV,
         "r-night.csv",
         source="tarn-7",
@@ -54,9 +52,15 @@ def test_csv_upload_converts_vega_magnitudes_and_times(
         instrument="hollow-hill-1m",
         columns=json.dumps({"time": "jd", "value": "mag", "error": "err"}),
         value_unit="mag",
-        reduction="aperture 5 arcsec",
-        reference="invented 2026",
+        **fields,
     )
+
+
+def test_csv_upload_converts_vega_magnitudes_and_times(
+    catalogue, contributor, client_for, upload_file
+):
+    c = client_for(contributor)
+    r = _upload_optical(c, upload_file, reduction="aperture 5 arcsec", reference="invented 2026")
     assert r.status_code == 201, r.json()
     body = r.json()
     assert body["counts"] == {"rows": 3, "points": 3, "upper_limits": 0, "detections": 3}
@@ -97,6 +101,19 @@ def test_worked_bjd_example_through_upload(catalogue, contributor, client_for, u
     assert r.status_code == 201, r.json()
     p = FluxPoint.objects.get(upload_id=r.json()["id"])
     assert p.t + 2400000.5 == pytest.approx(2460000.50641384, abs=1e-8)
+
+
+def test_the_answer_times_each_stage_of_the_upload(catalogue, contributor, client_for, upload_file):
+    """Server-Timing (W3C Server Timing): ``name;dur=ms`` entries, the stages in order, and
+    the stages add up to the total (to the 0.1 ms each entry is rounded to)."""
+    r = _upload_optical(client_for(contributor), upload_file)
+    assert r.status_code == 201, r.json()
+    entries = [e.strip().split(";dur=") for e in r.headers["Server-Timing"].split(",")]
+    names = [name for name, _ in entries]
+    assert names == ["body", "head", "lock", "copy", "store", "answer", "total"]
+    ms = [float(d) for _, d in entries]
+    assert min(ms) >= 0 and ms[-1] > 0
+    assert sum(ms[:-1]) == pytest.approx(ms[-1], abs=0.05 * len(ms))
 
 
 def test_fits_gamma_upload_reads_time_keywords(catalogue, contributor, client_for, upload_file):
