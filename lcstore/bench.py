@@ -50,6 +50,7 @@ __all__ = [
     "machine_facts",
     "python_load",
     "seconds_text",
+    "server_timing",
     "timed_get",
     "timed_upload",
     "wrk_load",
@@ -308,14 +309,27 @@ class Server:
 
 def timed_upload(
     client: httpx.Client, data: bytes, fields: dict[str, str], *, name: str = "bench.csv"
-) -> tuple[float, dict[str, Any]]:
-    """POST a multipart upload; wall seconds until the 201 answer has arrived, and its body."""
+) -> tuple[float, dict[str, Any], dict[str, float]]:
+    """POST a multipart upload; wall seconds until the 201 answer has arrived, its body,
+    and the server's stage times in seconds (its ``Server-Timing`` header)."""
     t0 = time.perf_counter()
     r = client.post("/api/v1/uploads/", data=fields, files={"file": (name, data, "text/csv")})
     elapsed = time.perf_counter() - t0
     if r.status_code != 201:
         raise RuntimeError(f"upload answered {r.status_code}: {r.text[:2000]}")
-    return elapsed, r.json()
+    return elapsed, r.json(), server_timing(r.headers.get("Server-Timing", ""))
+
+
+def server_timing(value: str) -> dict[str, float]:
+    """``name;dur=ms, ...`` (W3C Server Timing) as seconds by name; entries without dur skipped."""
+    stages: dict[str, float] = {}
+    for entry in value.split(","):
+        name, _, params = entry.strip().partition(";")
+        for param in params.split(";"):
+            key, _, ms = param.strip().partition("=")
+            if key == "dur" and name:
+                stages[name] = float(ms) / 1000.0
+    return stages
 
 
 def timed_get(client: httpx.Client, path: str) -> tuple[float, bytes]:
