@@ -779,7 +779,8 @@ class Bench:
         n = self.cfg.main_n
         self.ensure(MAIN, n)
         self.vacuum()
-        self.say(f"raw pull of {n:,} points: {self.cfg.repeats} repeats each side")
+        repeats = max(self.cfg.repeats, self.cfg.pull_repeats)
+        self.say(f"raw pull of {n:,} points: {repeats} repeats each side")
         sizes: dict[str, int] = {}
 
         def http() -> None:
@@ -790,7 +791,7 @@ class Bench:
         def sql() -> None:
             sizes["sql"] = self.sql_raw(MAIN)
 
-        prod, ref = self.alternate(http, sql, self.cfg.repeats)
+        prod, ref = self.alternate(http, sql, repeats)
         ok = "ok" if sizes["lines"] == n + 1 else f"MISMATCH ({sizes['lines']:,} lines)"
         self.rows.append(
             Row(
