@@ -1315,11 +1315,12 @@ def read_upload_chunks(
     Delimited text is planned on its first lines (encoding, delimiter, header,
     field counts), then checked (encoding, field counts, row limit) and parsed
     one run of lines at a time, so a caller can work on the first rows while the
-    rest are read; other formats are read whole and sliced. Each piece keeps the file's row numbers. A piece's column types are
-    inferred from its own rows, so a caller that finds a problem in a piece (a
-    :class:`ReadError` here, or a row problem later) should read the file whole
-    (:func:`read_upload`) to report it: that is the reference answer, and the
-    pieces agree with it row for row whenever every piece is clean.
+    rest are read; other formats are read whole and sliced. Each piece keeps the
+    file's row numbers. A piece's column types are inferred from its own rows,
+    so a caller that finds a problem in a piece (a :class:`ReadError` here, or a
+    row problem later) should read the file whole (:func:`read_upload`) to report
+    it: that is the reference answer, and the pieces agree with it row for row
+    whenever every piece is clean.
     """
     fmt = (format or infer_format(data, filename)).strip().lower()
     data = bytes(data)
