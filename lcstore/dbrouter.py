@@ -17,7 +17,14 @@ The rules, in the order they are tried:
    (POST/PUT/PATCH/DELETE: a conversion must use the catalogue as it is now,
    not as a lagging standby remembers it), once it has written anything, and
    for ``LCSTORE_REPLICA_STICKY_SECONDS`` after any request of the same user
-   wrote (read-your-writes); all other reads go to ``replica``.
+   wrote (read-your-writes); all other reads go to ``replica``;
+6. unless the standby does not answer: the first read a request would send it
+   checks its connection (``SELECT 1`` on a kept connection, a connect with
+   ``connect_timeout`` otherwise), and when that fails the
+   request reads the primary, as does every request of this process for the
+   next ``LCSTORE_REPLICA_RETRY_SECONDS``, after which the standby is tried
+   again. A standby that goes away between two reads of one request fails that
+   request; the next one is served by the primary.
 
 Read-your-writes is kept in Django's cache keyed by user id, not in a cookie:
 API clients with tokens (scripts, ``lcstore.client``) need not keep cookies,
@@ -31,7 +38,8 @@ replica inside one request, so every read of a request (the data version that
 keys a cached answer, the visible uploads, their points) comes from one server.
 That is what keeps cached answers right: the version is read *before* the data
 and from the same server, and a standby's replay only moves forward, so the
-data are never older than the version they are cached under. Reading the
+data are never older than the version they are cached under. (A request that
+falls back to the primary reads everything there, so the same holds.) Reading the
 version on the primary and the points on a lagging standby would cache old
 points under a new key.
 
@@ -42,13 +50,14 @@ connection of the alias the router chooses for reads now.
 from __future__ import annotations
 
 import contextvars
+import logging
 import math
 import time
 from collections.abc import Callable
 from typing import Any
 
 from django.conf import settings
-from django.db import DEFAULT_DB_ALIAS, connections, router
+from django.db import DEFAULT_DB_ALIAS, DatabaseError, connections, router
 from django.http import HttpRequest, HttpResponse
 
 __all__ = [
@@ -65,10 +74,47 @@ REPLICA_DB_ALIAS = "replica"
 PRIMARY_APPS = frozenset({"auth", "authtoken", "sessions"})
 SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS", "TRACE"})
 DEFAULT_STICKY_SECONDS = 10
+DEFAULT_RETRY_SECONDS = 5
+
+logger = logging.getLogger(__name__)
 
 
 def sticky_seconds() -> float:
     return float(getattr(settings, "LCSTORE_REPLICA_STICKY_SECONDS", DEFAULT_STICKY_SECONDS))
+
+
+def retry_seconds() -> float:
+    return float(getattr(settings, "LCSTORE_REPLICA_RETRY_SECONDS", DEFAULT_RETRY_SECONDS))
+
+
+# Until when (time.monotonic) this process sends no read to the standby, which failed.
+_standby_down_until = 0.0
+
+
+def _standby_answers() -> bool:
+    """Whether the standby can take a read now; a failure sends reads to the primary
+    for :func:`retry_seconds` (rule 6 of the module notes)."""
+    global _standby_down_until
+    if time.monotonic() < _standby_down_until:
+        return False
+    conn = connections[REPLICA_DB_ALIAS]
+    try:
+        # A kept connection to a server that went away fails SELECT 1 (the backend's
+        # is_usable); it is closed, and the connect below says whether the server is back.
+        # (Django's CONN_HEALTH_CHECKS does this once per request only where the handler
+        # resets it at the request's start, which the test client does not.)
+        if conn.connection is not None and not conn.is_usable():
+            conn.close()
+        conn.ensure_connection()
+    except DatabaseError as exc:
+        _standby_down_until = time.monotonic() + retry_seconds()
+        logger.warning(
+            "the standby does not answer (%s); reads go to the primary for %.0f s",
+            str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__,
+            retry_seconds(),
+        )
+        return False
+    return True
 
 
 def sticky_key(user_id: Any) -> str:
@@ -94,6 +140,7 @@ class _RequestState:
         self.primary = request.method not in SAFE_METHODS
         self.wrote = False
         self._checked_user: Any = None
+        self._standby_checked = False
         self._resolving = False
 
     def user_id(self) -> Any:
@@ -118,6 +165,9 @@ class _RequestState:
             self._checked_user = uid
             if _sticky(uid):
                 self.primary = True
+        if not self.primary and not self._standby_checked:
+            self._standby_checked = True
+            self.primary = not _standby_answers()
         return self.primary
 
 

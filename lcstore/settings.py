@@ -125,16 +125,23 @@ else:
 # processes set REDIS_URL so they share them. The replica's sessions are read-only, so
 # a misrouted write fails loudly even when the URL names a server that accepts writes.
 LCSTORE_REPLICA_STICKY_SECONDS = _env_int("LCSTORE_REPLICA_STICKY_SECONDS", 10)
+LCSTORE_REPLICA_RETRY_SECONDS = _env_int("LCSTORE_REPLICA_RETRY_SECONDS", 5)
 if os.environ.get("DATABASE_REPLICA_URL"):
     if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
         from django.core.exceptions import ImproperlyConfigured
 
         raise ImproperlyConfigured("DATABASE_REPLICA_URL needs DATABASE_URL (the primary)")
+    # The router checks a kept connection before a request's first read, and a standby
+    # that does not answer within connect_timeout sends reads to the primary for
+    # LCSTORE_REPLICA_RETRY_SECONDS (lcstore/dbrouter.py, rule 6).
     DATABASES["replica"] = dj_database_url.parse(
         os.environ["DATABASE_REPLICA_URL"], conn_max_age=60
     )
     DATABASES["replica"].setdefault("OPTIONS", {})["options"] = (
         "-c default_transaction_read_only=on"
+    )
+    DATABASES["replica"]["OPTIONS"].setdefault(
+        "connect_timeout", _env_int("LCSTORE_REPLICA_CONNECT_TIMEOUT", 3)
     )
     # Tests: no database of its own; it reads the primary's test database by name
     # (a physical standby carries it).

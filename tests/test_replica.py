@@ -24,7 +24,9 @@ standby's answer lacks it, and a count that has it means the COPY ran on the
 primary even though the list of visible uploads came from the standby. Which connection ran which SQL
 is recorded with Django's ``CaptureQueriesContext`` on each alias, and
 ``pg_is_in_recovery()`` tells the standby from the primary (PostgreSQL manual,
-"System Administration Functions").
+"System Administration Functions"). Last, the child stops the standby with
+``pg_ctlcluster`` while it keeps a connection to it, reads through the primary,
+starts the standby again and reads from it once the retry window has passed.
 """
 
 from __future__ import annotations
@@ -44,6 +46,7 @@ import pytest
 
 ROOT = Path(__file__).resolve().parent.parent
 STICKY_SECONDS = 2.0  # the child's LCSTORE_REPLICA_STICKY_SECONDS (short, to keep the test fast)
+RETRY_SECONDS = 1.0  # the child's LCSTORE_REPLICA_RETRY_SECONDS
 TOOLS = ("pg_createcluster", "pg_ctlcluster", "pg_dropcluster", "pg_basebackup")
 DB_NAME = "lcrepl"
 
@@ -169,6 +172,7 @@ def pair(request: pytest.FixtureRequest) -> dict[str, Any]:
     )
     return {
         "version": version,
+        "standby_cluster": standby,
         "primary_port": ports[primary],
         "standby_port": ports[standby],
         "standby_start": starting,
@@ -184,6 +188,8 @@ def observed(pair: dict[str, Any]) -> dict[str, Any]:
         "DATABASE_URL": f"postgres://postgres@127.0.0.1:{pair['primary_port']}/{DB_NAME}",
         "DATABASE_REPLICA_URL": f"postgres://postgres@127.0.0.1:{pair['standby_port']}/{DB_NAME}",
         "LCSTORE_REPLICA_STICKY_SECONDS": str(int(STICKY_SECONDS)),
+        "LCSTORE_REPLICA_RETRY_SECONDS": str(int(RETRY_SECONDS)),
+        "LCREPL_STANDBY_CLUSTER": f"{pair['version']} {pair['standby_cluster']}",
         "LCSTORE_PUBLIC_READ": "1",
         "PYTHONDONTWRITEBYTECODE": "1",
     }
@@ -203,9 +209,15 @@ def observed(pair: dict[str, Any]) -> dict[str, Any]:
     assert done.returncode == 0, f"scenario failed:\n{done.stderr[-6000:]}"
     facts = json.loads(done.stdout.strip().splitlines()[-1])
     facts["scenario_seconds"] = time.perf_counter() - t0
+    down = {
+        k: round(v["seconds"], 3)
+        for k, v in facts["down"].items()
+        if isinstance(v, dict) and "seconds" in v
+    }
     print(
         f"\nreplica test: pair set up in {pair['setup_seconds']:.1f} s, "
-        f"scenario {facts['scenario_seconds']:.1f} s; child timeline (s): {facts['timeline']}"
+        f"scenario {facts['scenario_seconds']:.1f} s; child timeline (s): {facts['timeline']}; "
+        f"reads with the standby down (s): {down}"
     )
     return facts
 
@@ -300,6 +312,21 @@ def test_cached_answers_are_keyed_by_the_version_of_the_server_that_answered(
     assert c["again"]["cache"] == "hit" and c["again"]["rows"] == n_after
 
 
+def test_reads_go_to_the_primary_while_the_standby_is_down(observed: dict[str, Any]) -> None:
+    """pg_ctlcluster stops the standby under a process that keeps a connection to it:
+    reads are answered by the primary (no error), then by the standby once it is back."""
+    d = observed["down"]
+    assert d["before"]["status"] == 200 and _data_sql(d["before"]["standby"])
+    for name in ("kept_connection_dead", "within_retry", "after_retry_still_down"):
+        s = d[name]
+        assert s["status"] == 200 and s["rows"] == d["n"], (name, s)
+        assert _data_sql(s["primary"]), f"{name}: the primary ran no data query"
+    assert d["router"] == {"get_request": "default", "read_connection": "default"}
+    back = d["back"]
+    assert back["status"] == 200 and back["rows"] == d["n"]
+    assert _data_sql(back["standby"]) and not _data_sql(back["primary"])
+
+
 # ---------------------------------------------------------------- the child
 
 
@@ -362,15 +389,19 @@ def _scenario() -> dict[str, Any]:  # noqa: PLR0915 (one linear story)
     mark("django ready")
     call_command("migrate", verbosity=0)
     mark("migrated")
-    deadline = time.monotonic() + 60
-    while True:  # the standby may still be starting ("the database system is starting up")
-        try:
-            standby.ensure_connection()
-            break
-        except OperationalError:
-            if time.monotonic() > deadline:
-                raise
-            time.sleep(0.1)
+
+    def wait_for_standby() -> None:
+        deadline = time.monotonic() + 60
+        while True:  # the standby may still be starting ("the database system is starting up")
+            try:
+                standby.ensure_connection()
+                return
+            except OperationalError:
+                if time.monotonic() > deadline:
+                    raise
+                time.sleep(0.1)
+
+    wait_for_standby()
     mark("standby accepts connections")
     facts["in_recovery"] = {
         "default": one(primary, "SELECT pg_is_in_recovery()"),
@@ -497,6 +528,49 @@ def _scenario() -> dict[str, Any]:  # noqa: PLR0915 (one linear story)
         c["again"] = step(dov, query)
         facts["cache"] = c
     mark("cached steps")
+
+    # The standby stops and comes back (dbrouter rule 6). This process keeps a connection
+    # to it from the steps above; after the stop that connection is dead.
+    cluster = os.environ["LCREPL_STANDBY_CLUSTER"].split()
+    ctl = ["pg_ctlcluster", "--skip-systemctl-redirect", *cluster]
+
+    def step_on_primary(c: APIClient) -> dict[str, Any]:
+        """A step while the standby is down (capturing on it would connect to it)."""
+        with CaptureQueriesContext(primary) as on_p:
+            t0 = time.perf_counter()
+            r = c.get(curve)
+            seconds = time.perf_counter() - t0
+        return {
+            "status": r.status_code,
+            "rows": len(r.json()["rows"]) if r.status_code == 200 else None,
+            "primary": [q["sql"] for q in on_p.captured_queries],
+            "seconds": seconds,
+        }
+
+    down: dict[str, Any] = {"n": n0 + 1 + n1 + n2}
+    facts["down"] = down
+    with override_settings(LCSTORE_CACHE_ANSWERS=False):
+        down["before"] = step(anon, curve)
+        _run([*ctl, "stop", "-m", "fast"])
+        mark("standby stopped")
+        down["kept_connection_dead"] = step_on_primary(anon)
+        down["within_retry"] = step_on_primary(dov)
+        seen_down: dict[str, Any] = {}
+
+        def probe_down(request: Any) -> HttpResponse:
+            seen_down["get_request"] = router.db_for_read(Upload)
+            seen_down["read_connection"] = read_connection().alias
+            return HttpResponse()
+
+        ReplicaRoutingMiddleware(probe_down)(RequestFactory().get("/"))
+        down["router"] = seen_down
+        time.sleep(RETRY_SECONDS + 0.1)
+        down["after_retry_still_down"] = step_on_primary(anon)
+        _run([*ctl, "start"])
+        wait_for_standby()
+        mark("standby back")
+        time.sleep(RETRY_SECONDS + 0.1)
+        down["back"] = step(anon, curve)
     for conn in connections.all():
         conn.close()
     return facts
