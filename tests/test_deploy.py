@@ -2,7 +2,8 @@
 
 The checklist is docs.djangoproject.com/en/5.2/howto/deployment/checklist/; its
 automated part is ``check --deploy`` (Django's ``security.*`` checks) plus
-lcstore's own checks in lcstore/checks.py (E001 demo SECRET_KEY, W002 SQLite).
+lcstore's own checks in lcstore/checks.py (E001 demo SECRET_KEY, W002 SQLite, W003 a
+standby with a cache of each process).
 """
 
 from __future__ import annotations
@@ -102,6 +103,29 @@ def test_the_documented_environment_gives_the_production_settings(monkeypatch, s
     assert s["DATABASES"]["default"]["ENGINE"] == "django.db.backends.postgresql"
     proxy = ("HTTP_X_FORWARDED_PROTO", "https")
     assert s.get("SECURE_PROXY_SSL_HEADER") == (proxy if "PROXY" in switch else None)
+
+
+@pytest.mark.parametrize("redis", [False, True])
+def test_a_standby_with_a_cache_of_each_process_is_warned_of(monkeypatch, redis):
+    """Read-your-writes marks live in the cache (lcstore/dbrouter.py): with a standby and
+    several API processes they must be shared, so a per-process cache is warned of."""
+    from lcstore.checks import replica_cache_warnings
+
+    env = PRODUCTION_ENV | {
+        "DATABASE_REPLICA_URL": "postgres://lcstore@standby.example.org/lcstore"
+    }
+    if redis:
+        env["REDIS_URL"] = "redis://cache.example.org:6379/0"
+    else:
+        monkeypatch.delenv("REDIS_URL", raising=False)
+    s = _settings_from(env, monkeypatch)
+    ids = [w.id for w in replica_cache_warnings(s["DATABASES"], s["CACHES"])]
+    assert ids == ([] if redis else ["lcstore.W003"])
+    replica = s["DATABASES"]["replica"]
+    assert replica["OPTIONS"]["connect_timeout"] == 3
+    monkeypatch.delenv("DATABASE_REPLICA_URL")
+    s = _settings_from({k: v for k, v in env.items() if k != "DATABASE_REPLICA_URL"}, monkeypatch)
+    assert replica_cache_warnings(s["DATABASES"], s["CACHES"]) == []
 
 
 def test_without_the_environment_plain_http_still_works(monkeypatch):
