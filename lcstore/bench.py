@@ -332,6 +332,11 @@ def server_timing(value: str) -> dict[str, float]:
     return stages
 
 
+def stages_text(stages: dict[str, float], *, skip: tuple[str, ...] = ()) -> str:
+    """Stage times in seconds as ``name ms, ...`` in their order, without the ``skip`` names."""
+    return ", ".join(f"{k} {v * 1000:,.0f}" for k, v in stages.items() if k not in skip)
+
+
 def timed_get(client: httpx.Client, path: str) -> tuple[float, bytes]:
     """GET ``path`` and read the whole body; wall seconds until the last byte, and the body."""
     t0 = time.perf_counter()

@@ -65,6 +65,9 @@ GROWTH_SIZES = (10_000, 100_000, 1_000_000, 10_000_000)
 BARE_TABLE = "lcbench_bare"
 PART_TABLE = "lcbench_part"
 N_PARTITIONS = 8
+# The ingest repeat (0-based) that also times the point-table COPY and the BJD_TDB upload:
+# not the first, whose big upload is slower than the rest (4.1 s, then 2.7-3.0 s, in one run).
+PROBE_REPEAT = 1
 MAIN, LOAD, ISO = "bench-main", "bench-load", "bench-iso"
 N_OTHER_SOURCES = 100
 ISO_SLICES = 10
@@ -140,8 +143,6 @@ class Bench:
         self.cache_present = _curve_cache_present()
         self.facts: list[tuple[str, str]] = []
         self.ingest_bary: Timing | None = None
-        # (bare COPY, upload) of the repeat that also timed the two probes above
-        self.ingest_probe: tuple[float, float] | None = None
         # The Server-Timing stages of the timed uploads of ingest_at, by row count, in run order.
         self.ingest_stages: dict[int, list[dict[str, float]]] = {}
         self.last_stages: dict[str, float] = {}
@@ -476,7 +477,7 @@ class Bench:
         client = self.ensure_server()
         fields = self.upload_fields(slug, frame or self.cfg.frame)
         elapsed, body, self.last_stages = bench.timed_upload(client, data, fields)
-        stages = ", ".join(f"{k} {v * 1000:,.0f}" for k, v in self.last_stages.items())
+        stages = bench.stages_text(self.last_stages)
         self.say(f"upload of {n:,} rows: {elapsed:.2f} s ({frame or self.cfg.frame}; ms: {stages})")
         stored = body.get("n_points", (body.get("counts") or {}).get("points"))
         if stored != n:
@@ -559,11 +560,10 @@ class Bench:
         """Upload ``n`` rows over HTTP and COPY them into the bare table, alternately.
 
         Repeats stop early once the timed uploads and COPYs have taken ``budget_s``
-        (long figures get fewer runs; short ones always get ``repeats``). With ``decompose``, the first
-        repeat also times a COPY into the point table itself (its real indexes and statistics)
-        and the same upload with times already in BJD_TDB (no light-time step), each set
-        against the bare COPY of that repeat. The second repeat, not the first: the first
-        big upload of a run is slower than the rest (4.1 s, then 2.7-3.0 s, in one run).
+        (long figures get fewer runs; short ones always get ``repeats``). With ``decompose``,
+        repeat ``PROBE_REPEAT`` also times a COPY into the point table itself (its real indexes
+        and statistics) and the same upload with times already in BJD_TDB (no light-time step),
+        which phase_ingest sets against the bare COPY of that repeat.
         """
         if n in self.ingest_cache:
             return
@@ -578,7 +578,7 @@ class Bench:
         bare: list[float] = []
         fk: list[float] = []
         bary: list[float] = []
-        probe = 1 if repeats > 1 else 0
+        probe = min(PROBE_REPEAT, repeats - 1)
         for r in range(repeats):
             if r > 0 and sum(prod) + sum(bare) > budget_s:
                 break
@@ -622,8 +622,6 @@ class Bench:
             Timing(min(fk), tuple(fk)) if fk else None,
         )
         self.ingest_bary = Timing(min(bary), tuple(bary)) if bary else None
-        if fk:
-            self.ingest_probe = (bare[probe], prod[probe])
         self.ingest_stages[n] = stages
 
     def binned_at(self, n: int, repeats: int) -> None:
@@ -708,9 +706,7 @@ class Bench:
         )
         stages = self.ingest_stages[n][prod.runs.index(prod.best)]
         if "copy" in stages:
-            rest = ", ".join(
-                f"{k} {v * 1000:,.0f}" for k, v in stages.items() if k not in ("copy", "total")
-            )
+            rest = bench.stages_text(stages, skip=("copy", "total"))
             self.rows.append(
                 Row(
                     "  (info) the COPY stage of that upload vs the bare COPY",
@@ -721,8 +717,10 @@ class Bench:
                     notes=f"its Server-Timing, ms: {rest}",
                 )
             )
-        if fk is not None and self.ingest_probe is not None:
-            probe_bare, probe_upload = self.ingest_probe
+        if fk is not None:
+            # fk exists only if repeat `probe` ran, so that repeat's times are in the runs.
+            probe = min(PROBE_REPEAT, bare.n - 1)
+            probe_bare, probe_upload = bare.runs[probe], prod.runs[probe]
             self.rows.append(
                 Row(
                     "  (info) COPY into the point table itself (no FK constraints; loader-checked)",
@@ -730,10 +728,7 @@ class Bench:
                     seconds_text(fk.best),
                     seconds_text(probe_bare),
                     fk.best / probe_bare,
-                    notes=(
-                        "one run, in the second repeat, against that repeat's bare COPY; "
-                        "same payload"
-                    ),
+                    notes=f"one run, in repeat {probe + 1}, against that repeat's bare COPY; same payload",
                 )
             )
             if self.ingest_bary is not None:
@@ -745,7 +740,7 @@ class Bench:
                         seconds_text(probe_bare),
                         self.ingest_bary.best / probe_bare,
                         notes=(
-                            "one run, in the second repeat, against that repeat's bare COPY; "
+                            f"one run, in repeat {probe + 1}, against that repeat's bare COPY; "
                             "time_scale=tdb, BARYCENTER; the UTC upload of that repeat: "
                             f"{seconds_text(probe_upload)}"
                         ),
