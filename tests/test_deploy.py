@@ -13,6 +13,7 @@ import runpy
 import secrets
 import shutil
 import subprocess
+import sys
 from io import StringIO
 from pathlib import Path
 
@@ -134,6 +135,29 @@ def test_without_the_environment_plain_http_still_works(monkeypatch):
     assert s["SECURE_SSL_REDIRECT"] is False and s["SECURE_HSTS_SECONDS"] == 0
     assert s["SESSION_COOKIE_SECURE"] is False and s["CSRF_COOKIE_SECURE"] is False
     assert s["SECRET_KEY"] == s["LCSTORE_DEMO_SECRET_KEY"]
+
+
+def test_a_wsgi_worker_loads_the_urlconf_and_time_tables_at_start():
+    """gunicorn's workers import lcstore.wsgi before their first request; what Django does
+    lazily on a first request (import the URLconf, every view, scipy.stats) is done then."""
+    probe = (
+        "import sys\n"
+        "assert 'api.urls' not in sys.modules and 'scipy.stats' not in sys.modules\n"
+        "import lcstore.wsgi\n"
+        "print(sorted(m for m in ('api.urls', 'api.views.analysis', 'scipy.stats') "
+        "if m in sys.modules))\n"
+    )
+    env = {k: v for k, v in os.environ.items() if k != "DJANGO_SETTINGS_MODULE"}
+    done = subprocess.run(
+        [sys.executable, "-c", probe],
+        cwd=ROOT,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.split("\n")[-2] == "['api.urls', 'api.views.analysis', 'scipy.stats']"
 
 
 # ------------------------------------------------------------------ docker-compose.yml

@@ -486,7 +486,11 @@ class Bench:
         return elapsed
 
     def warm_uploads(self) -> None:
-        """One small upload per worker first, so no timed upload pays a worker's first imports."""
+        """Two small uploads per worker first, so no timed upload is the first of its kind.
+
+        Which worker takes which is the kernel's choice; the imports of a worker's first
+        request are done when it starts (lcstore/wsgi.py), not here.
+        """
         if self.warmed:
             return
         arrays = bench.curve_arrays(1000, seed=3)
