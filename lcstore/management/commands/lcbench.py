@@ -66,7 +66,8 @@ BARE_TABLE = "lcbench_bare"
 PART_TABLE = "lcbench_part"
 N_PARTITIONS = 8
 # The ingest repeat (0-based) that also times the point-table COPY and the BJD_TDB upload:
-# not the first, whose big upload is slower than the rest (4.1 s, then 2.7-3.0 s, in one run).
+# not the first, which holds the run's first big COPY and upload (in one --only ingest run the
+# first bare COPY took 3.29 s, the later ones 2.47-2.56 s).
 PROBE_REPEAT = 1
 MAIN, LOAD, ISO = "bench-main", "bench-load", "bench-iso"
 N_OTHER_SOURCES = 100
